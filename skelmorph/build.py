@@ -1,0 +1,690 @@
+"""From a mask to a :class:`~skelmorph.graph.SkeletonGraph`.
+
+Steps (every one vectorised over voxels; Python loops run only over the few
+nodes that pruning changes):
+
+1. Thin the mask (:mod:`skelmorph.skeleton`).
+2. Find the 26- (8-) neighbours of every centreline voxel by binary search on
+   sorted linear indices, dropping *redundant* diagonal links: a link whose
+   two voxels are also joined through a face-neighbour path of the skeleton.
+   Without this, every staircase corner would look like a junction.
+3. Classify voxels by neighbour count: tips (1), path voxels (2), junction
+   voxels (>= 3).  Touching junction voxels form one node.
+4. Order the path voxels of every branch at once with a single depth-first
+   traversal from a virtual source joined to one end of every branch.
+5. Radii: exact Euclidean distance from each centreline point to the nearest
+   background voxel centre, from a KD-tree of the background voxels that touch
+   the object (the nearest background voxel always touches the object), so no
+   full-volume distance transform is needed.
+6. Clean-up, repeated until stable: contract edges joining two junctions
+   closer than the sum of their radii; prune terminal spurs shorter than
+   ``prune_factor`` x the junction radius (or ``min_branch_length``);
+   dissolve nodes left with two edges.
+7. Smooth every polyline (ends fixed) and measure its length.
+"""
+
+from __future__ import annotations
+
+import itertools
+import time
+from contextlib import contextmanager
+
+import numpy as np
+from scipy import ndimage as ndi
+from scipy import sparse
+from scipy.sparse import csgraph
+from scipy.spatial import cKDTree
+
+from ._version import __version__
+from .errors import InputError
+from .graph import SkeletonGraph
+from .io import check_image_array, normalise_unit, validate_spacing
+from .polyline import polyline_lengths, smooth_polylines
+from .segment import check_mask, is_binary
+from .skeleton import ANISOTROPY_LIMIT, resample_isotropic, skeletonize
+
+__all__ = ["skeleton_graph", "graph_from_skeleton", "centreline_radius"]
+
+
+@contextmanager
+def _timed(timings, name):
+    t0 = time.perf_counter()
+    yield
+    if timings is not None:
+        timings[name] = timings.get(name, 0.0) + time.perf_counter() - t0
+
+
+# ----------------------------------------------------------------------------- voxels
+
+def _forward_offsets(ndim):
+    """Half of the 3**d - 1 neighbour offsets (the other half are their negatives)."""
+    offs = [o for o in itertools.product((-1, 0, 1), repeat=ndim) if any(o)]
+    return [np.array(o) for o in offs if next(c for c in o if c) > 0]
+
+
+def _intermediates(off):
+    """Offsets w (0 < w < off componentwise) through which a link ``off`` is redundant."""
+    nz = np.flatnonzero(off)
+    out = []
+    for r in range(1, len(nz)):
+        for sub in itertools.combinations(nz, r):
+            w = np.zeros_like(off)
+            w[list(sub)] = off[list(sub)]
+            out.append(w)
+    return out
+
+
+def voxel_links(coords, shape):
+    """Non-redundant neighbour links between centreline voxels.
+
+    Parameters
+    ----------
+    coords : (n, d) int array
+        Voxel indices, sorted in C order (as ``np.nonzero`` returns them).
+    shape : tuple
+
+    Returns
+    -------
+    (m, 2) int array of voxel index pairs ``i < j``.
+    """
+    ndim = coords.shape[1]
+    pshape = np.asarray(shape, dtype=np.int64) + 2  # padding: no wrap-around at the edges
+    strides = np.ones(ndim, dtype=np.int64)
+    for a in range(ndim - 2, -1, -1):
+        strides[a] = strides[a + 1] * pshape[a + 1]
+    lin = (coords.astype(np.int64) + 1) @ strides
+    # Presence by a gather from the padded volume; positions by binary search
+    # only for the links that exist.
+    occupied = np.zeros(int(np.prod(pshape)), bool)
+    occupied[lin] = True
+
+    pairs = []
+    for off in _forward_offsets(ndim):
+        off_lin = int(off @ strides)
+        i = np.flatnonzero(occupied[lin + off_lin])
+        if np.abs(off).sum() >= 2 and len(i):
+            redundant = np.zeros(len(i), bool)
+            for w in _intermediates(off):
+                redundant |= occupied[lin[i] + int(w @ strides)]
+            i = i[~redundant]
+        j = np.searchsorted(lin, lin[i] + off_lin)
+        pairs.append(np.column_stack([i, j]))
+    return np.concatenate(pairs) if pairs else np.zeros((0, 2), np.int64)
+
+
+def _boundary_background(mask):
+    """Background voxels that touch the object (26/8-neighbourhood)."""
+    grown = mask.view(np.uint8)
+    for axis in range(mask.ndim):  # separable 3x3(x3) dilation
+        grown = ndi.maximum_filter1d(grown, 3, axis=axis, mode="constant")
+    return grown.astype(bool) & ~mask
+
+
+def _radius_kdtree(mask, coords, spacing):
+    border = _boundary_background(mask)
+    flat = np.flatnonzero(border)
+    if len(flat) == 0:
+        raise InputError("the mask has no background voxels; radii are undefined")
+    pts = np.column_stack(np.unravel_index(flat, mask.shape)) * np.asarray(spacing, float)
+    tree = cKDTree(pts, balanced_tree=False, compact_nodes=False)
+    return tree.query(np.asarray(coords) * np.asarray(spacing, float), workers=-1)[0]
+
+
+def _radius_shells(mask, coords, spacing, reach):
+    """Nearest background by searching offsets in order of increasing distance.
+
+    Exact: all offsets at the same physical distance form one shell, and a
+    point is resolved at the first shell that holds a background voxel.
+    Cost grows with r**3 per point, so points with no background within
+    ``reach`` voxels are returned as NaN (the KD-tree finishes them).
+    """
+    sp = np.asarray(spacing, float)
+    ndim = mask.ndim
+    limit = reach * sp.min()
+    half = np.ceil(limit / sp).astype(int)
+    grids = np.meshgrid(*[np.arange(-h, h + 1) for h in half], indexing="ij")
+    offs = np.stack([g.ravel() for g in grids], axis=1)
+    dist = np.linalg.norm(offs * sp, axis=1)
+    keep = (dist > 0) & (dist <= limit)
+    offs, dist = offs[keep], dist[keep]
+    order = np.argsort(dist, kind="stable")
+    offs, dist = offs[order], dist[order]
+    key = np.round(dist, 9)
+    shell_start = np.flatnonzero(np.r_[True, key[1:] != key[:-1]])
+    shell_end = np.r_[shell_start[1:], len(dist)]
+    # Outside the array is not background (as for the Euclidean distance transform).
+    padded = np.pad(mask, [(h, h) for h in half], constant_values=True).ravel()
+    pshape = np.asarray(mask.shape) + 2 * half
+    strides = np.ones(ndim, np.int64)
+    for a in range(ndim - 2, -1, -1):
+        strides[a] = strides[a + 1] * pshape[a + 1]
+    lin = (np.asarray(coords, np.int64) + half) @ strides
+    off_lin = offs.astype(np.int64) @ strides
+    result = np.full(len(lin), np.nan)
+    todo = np.arange(len(lin))
+    for a, b in zip(shell_start, shell_end):
+        hit = ~padded[lin[todo, None] + off_lin[None, a:b]]
+        found = hit.any(axis=1)
+        result[todo[found]] = dist[a]
+        todo = todo[~found]
+        if len(todo) == 0:
+            break
+    return result
+
+
+def centreline_radius(mask, coords, spacing, method="shells", reach=12):
+    """Distance from voxels ``coords`` to the nearest background voxel centre.
+
+    Equal to ``scipy.ndimage.distance_transform_edt(mask, sampling=spacing)``
+    at those voxels (the array edge is not background), without computing
+    the distance transform of the whole volume.
+
+    Parameters
+    ----------
+    mask : ndarray of bool
+    coords : (n, d) int array
+    spacing : tuple of float
+    method : {"shells", "kdtree", "edt"}
+        ``"shells"`` searches neighbour offsets in order of distance up to
+        ``reach`` voxels, then a KD-tree for the few thicker points;
+        ``"kdtree"`` queries a KD-tree of the background voxels touching the
+        object (the nearest background voxel always touches the object);
+        ``"edt"`` computes the full distance transform (reference).
+    reach : int
+        Search radius of ``"shells"``, in voxels of the finest axis.
+
+    Returns
+    -------
+    (n,) float array, in the units of ``spacing``.
+    """
+    coords = np.asarray(coords)
+    if len(coords) == 0:
+        return np.zeros(0)
+    if method == "edt":
+        dist = ndi.distance_transform_edt(mask, sampling=spacing)
+        return dist[tuple(coords.T)]
+    if method == "kdtree":
+        return _radius_kdtree(mask, coords, spacing)
+    result = _radius_shells(mask, coords, spacing, reach)
+    rest = np.isnan(result)
+    if rest.any():
+        result[rest] = _radius_kdtree(mask, coords[rest], spacing)
+    return result
+
+
+def _restore_vanished(mask, skel):
+    """Give every mask component that thinning erased one centreline voxel.
+
+    scikit-image's 3D thinning can delete a whole component (e.g. a box with
+    an even cross-section); a centre voxel keeps the component in the graph.
+    """
+    structure = ndi.generate_binary_structure(mask.ndim, mask.ndim)
+    labels, n = ndi.label(mask, structure=structure)
+    if n == 0:
+        return skel
+    has = np.zeros(n + 1, bool)
+    has[labels[skel]] = True
+    missing = np.flatnonzero(~has[1:]) + 1
+    if len(missing) == 0:
+        return skel
+    skel = skel.copy()
+    slices = ndi.find_objects(labels)
+    for lab in missing:  # only the vanished components
+        sl = slices[lab - 1]
+        crop = labels[sl] == lab
+        dist = ndi.distance_transform_edt(np.pad(crop, 1))[(slice(1, -1),) * mask.ndim]
+        idx = np.unravel_index(np.argmax(dist), crop.shape)
+        skel[tuple(s.start + i for s, i in zip(sl, idx))] = True
+    return skel
+
+
+# ----------------------------------------------------------------------------- raw graph
+
+class _Work:
+    """Editable graph during clean-up: node arrays + per-edge point lists."""
+
+    def __init__(self, node_pos, node_r, protected, u, v, pts, rad):
+        self.node_pos = node_pos
+        self.node_r = node_r
+        self.protected = protected  # isolated points: kept even with degree 0
+        self.u = list(u)
+        self.v = list(v)
+        self.pts = pts
+        self.rad = rad
+        self.shape = None  # image shape and spacing, for border tests
+        self.spacing = None
+
+    def near_border(self, nodes):
+        """True for nodes within their radius (+1.5 voxels) of an image face."""
+        if self.shape is None:
+            return np.zeros(len(nodes), bool)
+        sp = np.asarray(self.spacing)
+        pos = self.node_pos[nodes]
+        gap = np.minimum(pos + 0.5 * sp, (np.asarray(self.shape) - 0.5) * sp - pos).min(axis=1)
+        return gap <= self.node_r[nodes] + 1.5 * sp.max()
+
+    def degree(self):
+        deg = np.zeros(len(self.node_pos), np.int64)
+        np.add.at(deg, np.asarray(self.u, np.int64), 1)
+        np.add.at(deg, np.asarray(self.v, np.int64), 1)
+        return deg
+
+    def raw_lengths(self):
+        if not self.pts:
+            return np.zeros(0)
+        counts = np.fromiter((len(p) for p in self.pts), np.int64, len(self.pts))
+        offsets = np.concatenate([[0], np.cumsum(counts)])
+        return polyline_lengths(np.concatenate(self.pts), offsets)
+
+
+def _raw_graph(skel, mask, spacing, radius_method, timings):
+    """Nodes and point-ordered edges straight from the centreline voxels."""
+    sp = np.asarray(spacing, float)
+    with _timed(timings, "graph"):
+        coords = np.argwhere(skel)
+        n = len(coords)
+        links = voxel_links(coords, skel.shape)
+        deg = np.bincount(links.ravel(), minlength=n)
+    with _timed(timings, "radii"):
+        vox_r = centreline_radius(mask, coords, spacing, method=radius_method)
+    with _timed(timings, "graph"):
+        is_node = deg != 2
+        # Rings without any junction: promote one voxel per ring to an anchor node.
+        path_links = links[~is_node[links[:, 0]] & ~is_node[links[:, 1]]]
+        ncomp, lab = _components(n, path_links)
+        slab_deg = np.bincount(path_links.ravel(), minlength=n)
+        touches = np.zeros(ncomp, bool)
+        touches[lab[~is_node & (slab_deg < 2)]] = True
+        touches[lab[is_node]] = True
+        ring_comps = np.flatnonzero(~touches)
+        if len(ring_comps):
+            anchor_of = np.full(ncomp, -1)
+            cand = np.flatnonzero(np.isin(lab, ring_comps))
+            first = np.unique(lab[cand], return_index=True)[1]
+            anchor_of[lab[cand[first]]] = cand[first]
+            is_node = is_node.copy()
+            is_node[anchor_of[ring_comps]] = True
+            path_links = links[~is_node[links[:, 0]] & ~is_node[links[:, 1]]]
+            slab_deg = np.bincount(path_links.ravel(), minlength=n)
+
+        # Node ids: touching junction voxels (degree >= 3) form one node.
+        junction = deg >= 3
+        jlinks = links[junction[links[:, 0]] & junction[links[:, 1]]]
+        _, jlab = _components(n, jlinks)
+        node_vox = np.flatnonzero(is_node)
+        key = np.where(junction[node_vox], jlab[node_vox], n + node_vox)  # non-junctions stand alone
+        uniq, node_id_of = np.unique(key, return_inverse=True)
+        node_of_voxel = np.full(n, -1)
+        node_of_voxel[node_vox] = node_id_of
+        n_nodes = len(uniq)
+        pos_vox = coords * sp
+        node_pos = np.zeros((n_nodes, coords.shape[1]))
+        np.add.at(node_pos, node_id_of, pos_vox[node_vox])
+        node_pos /= np.bincount(node_id_of, minlength=n_nodes)[:, None]
+        node_r = np.zeros(n_nodes)
+        np.maximum.at(node_r, node_id_of, vox_r[node_vox])
+        protected = np.zeros(n_nodes, bool)
+        protected[node_of_voxel[node_vox[deg[node_vox] == 0]]] = True
+
+        # Path voxels: order every branch with one depth-first traversal.
+        slab = np.flatnonzero(~is_node)
+        u_list, v_list, pts_list, rad_list = [], [], [], []
+        if len(slab):
+            ncomp, lab = _components(n, path_links)
+            ends = slab[slab_deg[slab] < 2]
+            comp_ids, first = np.unique(lab[ends], return_index=True)
+            starts = ends[first]
+            src = n  # virtual source node
+            extra = np.column_stack([np.full(len(starts), src), starts])
+            allp = np.concatenate([path_links, extra])
+            g = sparse.coo_matrix((np.ones(len(allp)), (allp[:, 0], allp[:, 1])), shape=(n + 1, n + 1))
+            order = csgraph.depth_first_order(g.tocsr(), src, directed=False,
+                                              return_predecessors=False)[1:]
+            olab = lab[order]
+            cut = np.flatnonzero(np.diff(olab)) + 1
+            bounds = np.concatenate([[0], cut, [len(order)]])
+            # Node neighbours of each path voxel (first and last, in link order).
+            nl = links[is_node[links[:, 0]] != is_node[links[:, 1]]]
+            sv = np.where(is_node[nl[:, 0]], nl[:, 1], nl[:, 0])
+            nv = np.where(is_node[nl[:, 0]], nl[:, 0], nl[:, 1])
+            srt = np.argsort(sv, kind="stable")
+            sv, nv = sv[srt], nv[srt]
+            uv, idx, cnt = np.unique(sv, return_index=True, return_counts=True)
+            first_node = np.full(n, -1)
+            last_node = np.full(n, -1)
+            first_node[uv] = node_of_voxel[nv[idx]]
+            last_node[uv] = node_of_voxel[nv[idx + cnt - 1]]
+            s_vox, e_vox = order[bounds[:-1]], order[bounds[1:] - 1]
+            eu, ev = first_node[s_vox], last_node[e_vox]
+            # Flat polylines: node, path voxels..., node.
+            counts = np.diff(bounds) + 2
+            offs = np.concatenate([[0], np.cumsum(counts)])
+            flat = np.empty((offs[-1], coords.shape[1]))
+            flat_r = np.empty(offs[-1])
+            inner = np.ones(offs[-1], bool)
+            inner[offs[:-1]] = inner[offs[1:] - 1] = False
+            flat[inner] = pos_vox[order]
+            flat_r[inner] = vox_r[order]
+            flat[offs[:-1]], flat_r[offs[:-1]] = node_pos[eu], node_r[eu]
+            flat[offs[1:] - 1], flat_r[offs[1:] - 1] = node_pos[ev], node_r[ev]
+            pts_list = np.split(flat, offs[1:-1])
+            rad_list = np.split(flat_r, offs[1:-1])
+            u_list, v_list = list(eu), list(ev)
+        # Direct node-node links (e.g. a one-voxel spur on a junction).
+        nn = links[is_node[links[:, 0]] & is_node[links[:, 1]]]
+        a, b = node_of_voxel[nn[:, 0]], node_of_voxel[nn[:, 1]]
+        diff = a != b
+        if diff.any():
+            pairs = np.unique(np.sort(np.column_stack([a[diff], b[diff]]), axis=1), axis=0)
+            for p, q in pairs:
+                u_list.append(p)
+                v_list.append(q)
+                pts_list.append(node_pos[[p, q]])
+                rad_list.append(node_r[[p, q]])
+    return _Work(node_pos, node_r, protected, u_list, v_list, list(pts_list), list(rad_list))
+
+
+def _components(n, links):
+    if len(links) == 0:
+        return n, np.arange(n)
+    g = sparse.coo_matrix((np.ones(len(links)), (links[:, 0], links[:, 1])), shape=(n, n))
+    return csgraph.connected_components(g, directed=False)
+
+
+# ----------------------------------------------------------------------------- clean-up
+
+def _merge_close_junctions(w):
+    """Contract edges between two junctions closer than the sum of their radii.
+
+    Contracting an edge keeps E - V + C, so loops are never created or lost.
+    """
+    deg = w.degree()
+    u, v = np.asarray(w.u, np.int64), np.asarray(w.v, np.int64)
+    if len(u) == 0:
+        return False
+    dist = np.linalg.norm(w.node_pos[u] - w.node_pos[v], axis=1)
+    close = (u != v) & (deg[u] >= 3) & (deg[v] >= 3) & (dist < w.node_r[u] + w.node_r[v])
+    if not close.any():
+        return False
+    n = len(w.node_pos)
+    _, group = _components(n, np.column_stack([u[close], v[close]]))
+    # Representative of each group: its member with the largest radius.
+    order = np.lexsort((-w.node_r, group))
+    rep_of_group = np.full(group.max() + 1, -1)
+    firsts = np.unique(group[order], return_index=True)[1]
+    rep_of_group[group[order][firsts]] = order[firsts]
+    rep = rep_of_group[group]
+    keep = np.flatnonzero(~close)
+    new_u, new_v = rep[u[keep]], rep[v[keep]]
+    pts, rad = [], []
+    for e, a, b in zip(keep, new_u, new_v):
+        p, r = w.pts[e], w.rad[e]
+        if rep[u[e]] != u[e] or rep[v[e]] != v[e]:
+            p = p.copy()
+            r = r.copy()
+            p[0], p[-1] = w.node_pos[a], w.node_pos[b]
+            r[0], r[-1] = w.node_r[a], w.node_r[b]
+        pts.append(p)
+        rad.append(r)
+    w.u, w.v, w.pts, w.rad = list(new_u), list(new_v), pts, rad
+    return True
+
+
+def _prune_spurs(w, factor, min_length):
+    """Remove terminal edges shorter than max(factor x junction radius, min_length).
+
+    A tip on the image border is a cut through the structure, not a spur, and
+    is kept.  Only edges from a tip to a junction (degree >= 3) are candidates, so
+    pruning never breaks a loop or disconnects a component; when every edge
+    of a junction is a candidate the longest one stays.
+    """
+    deg = w.degree()
+    u, v = np.asarray(w.u, np.int64), np.asarray(w.v, np.int64)
+    if len(u) == 0:
+        return False
+    length = w.raw_lengths()
+    tip_u, tip_v = deg[u] == 1, deg[v] == 1
+    junction = np.where(tip_u, v, u)
+    terminal = (tip_u ^ tip_v) & (deg[junction] >= 3)
+    limit = np.maximum(factor * w.node_r[junction], min_length)
+    cand = terminal & (length <= limit) & ~w.near_border(np.where(tip_u, u, v))
+    if not cand.any():
+        return False
+    # A junction whose every edge is a candidate keeps its longest one.
+    n_cand = np.bincount(junction[cand], minlength=len(deg))
+    full = np.flatnonzero((n_cand >= deg) & (n_cand > 0))
+    for j in full:  # rare: star-shaped remnants
+        idx = np.flatnonzero(cand & (junction == j))
+        cand[idx[np.argmax(length[idx])]] = False
+    drop = np.flatnonzero(cand)
+    keep = np.flatnonzero(~cand)
+    w.u = [w.u[e] for e in keep]
+    w.v = [w.v[e] for e in keep]
+    w.pts = [w.pts[e] for e in keep]
+    w.rad = [w.rad[e] for e in keep]
+    w.dead = getattr(w, "dead", set()) | set(np.where(tip_u[drop], u[drop], v[drop]).tolist())
+    return True
+
+
+def _dissolve_degree_two(w):
+    """Join the two edges at every node of degree 2 (except ring anchors)."""
+    deg = w.degree()
+    cand = np.flatnonzero(deg == 2)
+    if len(cand) == 0:
+        return False
+    incident = {int(c): [] for c in cand}
+    for e, (a, b) in enumerate(zip(w.u, w.v)):
+        if a in incident:
+            incident[a].append(e)
+        if b in incident and b != a:
+            incident[b].append(e)
+    alive = [True] * len(w.u)
+    changed = False
+    for node in cand:  # nodes that pruning or merging left with two edges
+        node = int(node)
+        es = [e for e in incident[node] if alive[e]]
+        if len(es) != 2:
+            continue  # a ring anchor (one self-loop) or already handled
+        e1, e2 = es
+        p1, r1 = (w.pts[e1], w.rad[e1]) if w.v[e1] == node else (w.pts[e1][::-1], w.rad[e1][::-1])
+        a = w.u[e1] if w.v[e1] == node else w.v[e1]
+        p2, r2 = (w.pts[e2], w.rad[e2]) if w.u[e2] == node else (w.pts[e2][::-1], w.rad[e2][::-1])
+        b = w.v[e2] if w.u[e2] == node else w.u[e2]
+        alive[e1] = alive[e2] = False
+        w.u.append(a)
+        w.v.append(b)
+        w.pts.append(np.concatenate([p1, p2[1:]]))
+        w.rad.append(np.concatenate([r1, r2[1:]]))
+        alive.append(True)
+        new = len(w.u) - 1
+        for end in (a, b):
+            if end in incident:
+                incident[end] = [new if x in (e1, e2) else x for x in incident[end]]
+                if a == b and end == a:
+                    incident[end] = list(dict.fromkeys(incident[end]))
+        w.dead = getattr(w, "dead", set()) | {node}
+        changed = True
+    keep = [e for e in range(len(w.u)) if alive[e]]
+    w.u = [w.u[e] for e in keep]
+    w.v = [w.v[e] for e in keep]
+    w.pts = [w.pts[e] for e in keep]
+    w.rad = [w.rad[e] for e in keep]
+    return changed
+
+
+def _extend_tips(w):
+    """Lengthen every terminal edge by its tip radius along its end direction.
+
+    Thinning stops about one radius short of the object's end.
+    """
+    deg = w.degree()
+    for e in range(len(w.u)):
+        p = w.pts[e]
+        if len(p) < 2 or w.u[e] == w.v[e]:
+            continue
+        for end in (0, 1):
+            node = w.v[e] if end else w.u[e]
+            if deg[node] != 1:
+                continue
+            seq = p if end else p[::-1]
+            k = min(3, len(seq) - 1)
+            direction = seq[-1] - seq[-1 - k]
+            norm = np.linalg.norm(direction)
+            if norm == 0:
+                continue
+            tip = seq[-1] + direction / norm * w.node_r[node]
+            w.node_pos[node] = tip
+            if end:
+                p = np.vstack([p, tip])
+                w.rad[e] = np.append(w.rad[e], w.node_r[node])
+            else:
+                p = np.vstack([tip, p])
+                w.rad[e] = np.insert(w.rad[e], 0, w.node_r[node])
+        w.pts[e] = p
+
+
+def _finish(w, spacing, unit, shape, smoothing, meta):
+    """Drop dead nodes, flatten polylines, smooth them and measure lengths."""
+    n = len(w.node_pos)
+    deg = w.degree()
+    alive = (deg > 0) | w.protected
+    dead = getattr(w, "dead", set())
+    if dead:
+        alive[list(dead)] &= deg[list(dead)] > 0
+    new_id = np.cumsum(alive) - 1
+    u = new_id[np.asarray(w.u, np.int64)] if w.u else np.zeros(0, np.int64)
+    v = new_id[np.asarray(w.v, np.int64)] if w.v else np.zeros(0, np.int64)
+    nodes = w.node_pos[alive]
+    node_r = w.node_r[alive]
+    ndim = len(spacing)
+    counts = np.array([len(p) for p in w.pts], np.int64)
+    offsets = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
+    points = np.concatenate(w.pts) if w.pts else np.zeros((0, ndim))
+    radius = np.concatenate(w.rad) if w.rad else np.zeros(0)
+    edges = np.column_stack([u, v]).astype(np.int64) if len(u) else np.zeros((0, 2), np.int64)
+    degree = np.bincount(edges.ravel(), minlength=len(nodes)).astype(np.int64)
+    # A ring anchor (one self-loop, nothing else) smooths as a closed curve.
+    closed = (u == v) & (degree[u] == 2) if len(u) else np.zeros(0, bool)
+    # Smoothing works in points, i.e. about voxels of the finest axis.
+    points = smooth_polylines(points, offsets, smoothing, closed=closed)
+    if closed.any():
+        nodes = nodes.copy()
+        nodes[u[closed]] = points[offsets[:-1][closed]]
+    length = polyline_lengths(points, offsets)
+    return SkeletonGraph(nodes=nodes, node_radius=node_r, node_degree=degree, edges=edges,
+                         points=points, point_radius=radius, offsets=offsets, edge_length=length,
+                         spacing=tuple(spacing), unit=unit, shape=tuple(shape), meta=meta)
+
+
+# ----------------------------------------------------------------------------- public API
+
+def graph_from_skeleton(skel, mask, spacing=None, *, unit="um", prune=True, prune_factor=1.5,
+                        min_branch_length=0.0, merge_junctions=True, extend_tips=False,
+                        smoothing=2.0, radius_method="shells", timings=None, meta=None):
+    """Build the graph of an already thinned mask.  See :func:`skeleton_graph`."""
+    spacing = validate_spacing(1.0 if spacing is None else spacing, mask.ndim)
+    skel = np.asarray(skel, bool)
+    mask = np.asarray(mask, bool)
+    if skel.shape != mask.shape:
+        raise InputError(f"skeleton shape {skel.shape} differs from mask shape {mask.shape}")
+    w = _raw_graph(skel, mask, spacing, radius_method, timings)
+    w.shape, w.spacing = mask.shape, spacing
+    with _timed(timings, "graph"):
+        for _ in range(100):  # each pass removes something; stable after a few
+            changed = False
+            if merge_junctions:
+                changed |= _merge_close_junctions(w)
+            if prune:
+                changed |= _prune_spurs(w, prune_factor, min_branch_length)
+            changed |= _dissolve_degree_two(w)
+            if not changed:
+                break
+        if extend_tips:
+            _extend_tips(w)
+        meta = dict(meta or {})
+        meta.update(prune=bool(prune), prune_factor=float(prune_factor),
+                    min_branch_length=float(min_branch_length), merge_junctions=bool(merge_junctions),
+                    tip_extension=bool(extend_tips), smoothing=float(smoothing),
+                    skelmorph_version=__version__)
+        return _finish(w, spacing, normalise_unit(unit), mask.shape, smoothing, meta)
+
+
+def skeleton_graph(mask, spacing=None, prune=True, *, unit="um", prune_factor=1.5,
+                   min_branch_length=0.0, merge_junctions=True, extend_tips=False,
+                   smoothing=2.0, isotropic="auto", method=None, timings=None):
+    """Centreline graph of a binary 2D or 3D mask.
+
+    Parameters
+    ----------
+    mask : ndarray
+        Binary image (bool, or two values; the larger is the structure).
+        Use :func:`skelmorph.to_mask` for grey images.
+    spacing : float or sequence of float, optional
+        Voxel size, ``(z, y, x)`` order, in ``unit``.  Default 1.
+    prune : bool
+        Remove spurs: terminal branches no longer than
+        ``max(prune_factor x radius at their junction, min_branch_length)``,
+        repeated until stable.  Pruning never breaks a loop or disconnects a
+        component.
+    unit : str
+        Length unit of ``spacing``.
+    prune_factor : float
+        See ``prune``; 1.5 by default (a bump of height h on a tube of radius
+        r thins to a spur of length about h; common practice).
+    min_branch_length : float
+        Absolute spur length limit, in ``unit``.
+    merge_junctions : bool
+        Contract branches joining two junctions closer than the sum of their
+        radii, so that two crossing veins give one node, not two.
+    extend_tips : bool
+        Lengthen terminal branches by the radius at their tip (thinning stops
+        about one radius short of the object's end).  Off by default:
+        ``total_length`` is then the length of the thinned centreline.
+    smoothing : float
+        Gaussian smoothing of the polylines before lengths are measured, in
+        voxels (0 = raw voxel steps, which over-estimate length by 5-13 %).
+    isotropic : {"auto", True, False}
+        Resample anisotropic masks to cubic voxels before thinning; "auto"
+        does so when the largest/smallest voxel size ratio exceeds 1.2.
+    method : {None, "zhang", "lee"}
+        Thinning method (None: Zhang-Suen in 2D, Lee in 3D).
+    timings : dict, optional
+        Filled with seconds spent per stage (``skeletonize``, ``graph``,
+        ``radii``).
+
+    Returns
+    -------
+    SkeletonGraph
+
+    Raises
+    ------
+    InputError
+        A mask that is not binary, empty, all foreground, of the wrong
+        dimensionality or has NaN values.
+    SpacingError
+        A bad voxel size.
+    """
+    mask = check_image_array(mask)
+    if not is_binary(mask):
+        raise InputError("skeleton_graph needs a binary mask; threshold grey images first "
+                         "(skelmorph.to_mask)")
+    mask = mask.astype(bool) if mask.dtype == bool else (mask == mask.max()) & (mask != mask.min())
+    check_mask(mask)
+    spacing = validate_spacing(1.0 if spacing is None else spacing, mask.ndim)
+    resampled = False
+    ratio = max(spacing) / min(spacing)
+    if isotropic is True or (isotropic == "auto" and ratio > ANISOTROPY_LIMIT):
+        if ratio > 1.0:
+            with _timed(timings, "resample"):
+                mask, spacing = resample_isotropic(mask, spacing)
+            resampled = True
+            check_mask(mask)
+    with _timed(timings, "skeletonize"):
+        skel = skeletonize(mask, method=method)
+        skel = _restore_vanished(mask, skel)
+    return graph_from_skeleton(skel, mask, spacing, unit=unit, prune=prune,
+                               prune_factor=prune_factor, min_branch_length=min_branch_length,
+                               merge_junctions=merge_junctions, extend_tips=extend_tips,
+                               smoothing=smoothing, timings=timings,
+                               meta={"resampled_isotropic": resampled,
+                                     "thinning": method or ("zhang" if mask.ndim == 2 else "lee")})

@@ -1,0 +1,308 @@
+"""The embedded skeleton graph and its exports.
+
+A :class:`SkeletonGraph` is a multigraph embedded in physical space: nodes are
+junctions, tips and ring anchors; each edge (a *branch*) carries the polyline
+of its centreline with a radius at every point.  Parallel edges and
+self-loops are legal (a closed ring with no junction is one node with a
+self-loop).
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+from scipy import sparse
+from scipy.sparse import csgraph
+
+from .errors import SkelmorphError
+from .io import atomic_write
+
+__all__ = ["SkeletonGraph", "BRANCH_KINDS"]
+
+#: Branch kinds by the degrees of their end nodes.
+BRANCH_KINDS = ("terminal", "internal", "isolated", "ring")
+
+
+def _axis_names(ndim):
+    return ("z", "y", "x")[-ndim:]
+
+
+@dataclass(frozen=True, eq=False)
+class SkeletonGraph:
+    """Centreline network of a 2D or 3D structure, in physical units.
+
+    Attributes
+    ----------
+    nodes : (N, d) float array
+        Node positions, axis order ``(z, y, x)`` / ``(y, x)``, in ``unit``.
+    node_radius : (N,) float array
+        Distance from the node to the background, in ``unit``.
+    node_degree : (N,) int array
+        Number of edge ends at the node (a self-loop counts twice).
+    edges : (E, 2) int array
+        End nodes of each edge.  A polyline runs from ``edges[e, 0]`` to
+        ``edges[e, 1]``.
+    points : (K, d) float array
+        All edge polylines, stored flat; edge ``e`` is
+        ``points[offsets[e]:offsets[e + 1]]``, starting and ending at its nodes.
+    point_radius : (K,) float array
+        Radius at every polyline point, in ``unit``.
+    offsets : (E + 1,) int array
+    edge_length : (E,) float array
+        Length of each edge's (smoothed) polyline, in ``unit``.
+    spacing : tuple of float
+        Voxel size of the source image.
+    unit : str
+        Length unit.
+    shape : tuple of int
+        Shape of the source image, in voxels (for densities and faces).
+    meta : dict
+        How the graph was made (options, conventions).
+    """
+
+    nodes: np.ndarray
+    node_radius: np.ndarray
+    node_degree: np.ndarray
+    edges: np.ndarray
+    points: np.ndarray
+    point_radius: np.ndarray
+    offsets: np.ndarray
+    edge_length: np.ndarray
+    spacing: tuple
+    unit: str = "um"
+    shape: tuple = ()
+    meta: dict = field(default_factory=dict)
+
+    # ------------------------------------------------------------------ basics
+    @property
+    def ndim(self):
+        return self.nodes.shape[1]
+
+    @property
+    def n_nodes(self):
+        return len(self.nodes)
+
+    @property
+    def n_edges(self):
+        return len(self.edges)
+
+    def edge_points(self, e):
+        """Polyline of edge ``e`` as a (n, d) view."""
+        return self.points[self.offsets[e]:self.offsets[e + 1]]
+
+    def edge_radii(self, e):
+        return self.point_radius[self.offsets[e]:self.offsets[e + 1]]
+
+    def adjacency(self):
+        """Symmetric sparse node adjacency (number of edges between each pair)."""
+        n = self.n_nodes
+        u, v = self.edges[:, 0], self.edges[:, 1]
+        data = np.ones(len(u))
+        a = sparse.coo_matrix((data, (u, v)), shape=(n, n))
+        return (a + a.T).tocsr()
+
+    def component_labels(self):
+        """Connected component of every node, (N,) int array."""
+        if self.n_nodes == 0:
+            return np.zeros(0, int)
+        return csgraph.connected_components(self.adjacency(), directed=False)[1]
+
+    @property
+    def n_components(self):
+        if self.n_nodes == 0:
+            return 0
+        return int(csgraph.connected_components(self.adjacency(), directed=False)[0])
+
+    @property
+    def cycle_rank(self):
+        """Number of independent loops, E - V + C (first Betti number)."""
+        return int(self.n_edges - self.n_nodes + self.n_components)
+
+    @property
+    def edge_chord(self):
+        """Straight-line distance between the end points of each edge."""
+        first = self.points[self.offsets[:-1]]
+        last = self.points[self.offsets[1:] - 1]
+        return np.linalg.norm(last - first, axis=1)
+
+    @property
+    def edge_kind(self):
+        """Kind of each edge: terminal, internal, isolated or ring (see BRANCH_KINDS)."""
+        u, v = self.edges[:, 0], self.edges[:, 1]
+        du, dv = self.node_degree[u], self.node_degree[v]
+        tips = (du == 1).astype(int) + (dv == 1).astype(int)
+        kind = np.where(tips == 2, "isolated", np.where(tips == 1, "terminal", "internal"))
+        return np.where(u == v, "ring", kind).astype(object)
+
+    def edge_radius_stats(self):
+        """Per-edge mean, min and max radius over polyline points (length-weighted mean)."""
+        from .polyline import edge_index
+        eid = edge_index(self.offsets)
+        n = self.n_edges
+        r = self.point_radius
+        # Weight each point by half of its two adjacent segments.
+        steps = np.zeros(len(self.points))
+        if len(self.points) > 1:
+            steps[1:] = np.linalg.norm(np.diff(self.points, axis=0), axis=1)
+        steps[self.offsets[:-1]] = 0.0
+        w = 0.5 * steps
+        w[:-1] += 0.5 * steps[1:]
+        w = np.where(w > 0, w, 1e-12)
+        mean = np.bincount(eid, w * r, n) / np.bincount(eid, w, n)
+        rmin = np.full(n, np.inf)
+        rmax = np.full(n, -np.inf)
+        np.minimum.at(rmin, eid, r)
+        np.maximum.at(rmax, eid, r)
+        return mean, rmin, rmax
+
+    # ------------------------------------------------------------------ exports
+    def to_networkx(self):
+        """The graph as a :class:`networkx.MultiGraph`.
+
+        Node attributes: one coordinate per axis (``z``, ``y``, ``x``),
+        ``radius``, ``degree``.  Edge attributes: ``branch`` (edge index),
+        ``length``, ``radius_mean``, ``kind`` and ``points`` (the polyline,
+        (n, d) array).
+        """
+        import networkx as nx
+
+        g = nx.MultiGraph(unit=self.unit, spacing=list(self.spacing))
+        names = _axis_names(self.ndim)
+        for i in range(self.n_nodes):
+            attrs = {a: float(c) for a, c in zip(names, self.nodes[i])}
+            g.add_node(i, radius=float(self.node_radius[i]), degree=int(self.node_degree[i]), **attrs)
+        mean, _, _ = self.edge_radius_stats()
+        kinds = self.edge_kind
+        for e, (u, v) in enumerate(self.edges):
+            g.add_edge(int(u), int(v), key=e, branch=e, length=float(self.edge_length[e]),
+                       radius_mean=float(mean[e]), kind=str(kinds[e]), points=self.edge_points(e).copy())
+        return g
+
+    def to_vtk(self):
+        """The centrelines as :class:`pyvista.PolyData` (one line cell per edge).
+
+        VTK points are ``(x, y, z)``; 2D graphs get ``z = 0``.  Point data:
+        ``radius``; cell data: ``branch``, ``length``.
+        """
+        import pyvista as pv
+
+        pts = self._vtk_points()
+        counts = np.diff(self.offsets)
+        cells = np.insert(np.arange(len(pts)), self.offsets[:-1], counts)
+        poly = pv.PolyData(pts, lines=cells if self.n_edges else None)
+        poly.point_data["radius"] = self.point_radius
+        if self.n_edges:
+            poly.cell_data["branch"] = np.arange(self.n_edges)
+            poly.cell_data["length"] = self.edge_length
+        return poly
+
+    def _vtk_points(self):
+        xyz = self.points[:, ::-1]
+        if self.ndim == 2:
+            xyz = np.column_stack([xyz, np.zeros(len(xyz))])
+        return np.ascontiguousarray(xyz, dtype=float)
+
+    def write(self, path):
+        """Write the graph; the format follows the suffix.
+
+        ``.graphml``
+            GraphML (networkx); polylines as a flat text attribute.
+        ``.vtp``
+            VTK XML PolyData (ASCII), readable by ParaView and pyvista.
+        ``.json`` / ``.npz``
+            All arrays; read back with :meth:`read`.
+        """
+        path = Path(path)
+        suffix = path.suffix.lower()
+        if suffix == ".graphml":
+            self._write_graphml(path)
+        elif suffix == ".vtp":
+            self._write_vtp(path)
+        elif suffix == ".json":
+            with atomic_write(path, "w", encoding="utf-8") as fh:
+                json.dump(self._as_dict(lists=True), fh)
+        elif suffix == ".npz":
+            with atomic_write(path, "wb") as fh:
+                np.savez_compressed(fh, **{k: np.asarray(v) if k != "meta" else json.dumps(v)
+                                           for k, v in self._as_dict(lists=False).items()})
+        else:
+            raise SkelmorphError(f"unknown graph format {suffix!r}; use .graphml, .vtp, .json or .npz")
+
+    _ARRAYS = ("nodes", "node_radius", "node_degree", "edges", "points", "point_radius",
+               "offsets", "edge_length")
+
+    def _as_dict(self, lists):
+        d = {k: getattr(self, k) for k in self._ARRAYS}
+        if lists:
+            d = {k: v.tolist() for k, v in d.items()}
+        d.update(spacing=list(self.spacing), unit=self.unit, shape=list(self.shape), meta=self.meta)
+        return d
+
+    @classmethod
+    def read(cls, path):
+        """Read a graph written by :meth:`write` as ``.json`` or ``.npz``."""
+        path = Path(path)
+        try:
+            if path.suffix.lower() == ".json":
+                d = json.loads(path.read_text(encoding="utf-8"))
+            elif path.suffix.lower() == ".npz":
+                with np.load(path, allow_pickle=False) as z:
+                    d = {k: z[k] for k in z.files}
+                d["meta"] = json.loads(str(d["meta"]))
+                d["unit"] = str(d["unit"])
+            else:
+                raise SkelmorphError(f"can only read .json or .npz graphs, not {path.suffix!r}")
+        except (OSError, ValueError, KeyError) as exc:
+            raise SkelmorphError(f"cannot read graph {path}: {exc}") from None
+        nd = len(d["spacing"])
+        arrays = dict(
+            nodes=np.asarray(d["nodes"], float).reshape(-1, nd),
+            node_radius=np.asarray(d["node_radius"], float),
+            node_degree=np.asarray(d["node_degree"], np.int64),
+            edges=np.asarray(d["edges"], np.int64).reshape(-1, 2),
+            points=np.asarray(d["points"], float).reshape(-1, nd),
+            point_radius=np.asarray(d["point_radius"], float),
+            offsets=np.asarray(d["offsets"], np.int64),
+            edge_length=np.asarray(d["edge_length"], float),
+        )
+        return cls(**arrays, spacing=tuple(float(s) for s in d["spacing"]), unit=str(d["unit"]),
+                   shape=tuple(int(s) for s in d["shape"]), meta=dict(d.get("meta") or {}))
+
+    def _write_graphml(self, path):
+        import networkx as nx
+
+        g = self.to_networkx()
+        for _, _, data in g.edges(data=True):
+            data["points"] = " ".join(f"{c:.6g}" for c in np.ravel(data["points"]))
+        g.graph["spacing"] = " ".join(str(s) for s in self.spacing)
+        with atomic_write(path, "wb") as fh:
+            nx.write_graphml(g, fh)
+
+    def _write_vtp(self, path):
+        pts = self._vtk_points()
+        counts = np.diff(self.offsets)
+
+        def block(name, arr, fmt, ncomp=1, vtype="Float64"):
+            body = " ".join(fmt % v for v in np.ravel(arr))
+            return (f'<DataArray type="{vtype}" Name="{name}" NumberOfComponents="{ncomp}" '
+                    f'format="ascii">{body}</DataArray>')
+
+        parts = [
+            '<?xml version="1.0"?>',
+            '<VTKFile type="PolyData" version="1.0" byte_order="LittleEndian">',
+            "<PolyData>",
+            f'<Piece NumberOfPoints="{len(pts)}" NumberOfVerts="0" NumberOfLines="{self.n_edges}" '
+            f'NumberOfStrips="0" NumberOfPolys="0">',
+            "<PointData Scalars=\"radius\">", block("radius", self.point_radius, "%.6g"), "</PointData>",
+            "<CellData>", block("branch", np.arange(self.n_edges), "%d", vtype="Int64"),
+            block("length", self.edge_length, "%.6g"), "</CellData>",
+            "<Points>", block("Points", pts, "%.6g", ncomp=3), "</Points>",
+            "<Lines>", block("connectivity", np.arange(len(pts)), "%d", vtype="Int64"),
+            block("offsets", np.cumsum(counts), "%d", vtype="Int64"), "</Lines>",
+            "</Piece>", "</PolyData>", "</VTKFile>",
+        ]
+        with atomic_write(path, "w", encoding="utf-8") as fh:
+            fh.write("\n".join(parts) + "\n")

@@ -1,0 +1,1 @@
+"""Morphometrics: graph measures here; field-specific sets in submodules."""

@@ -1,0 +1,120 @@
+"""Many polylines stored flat: smoothing and lengths, vectorised over all of them.
+
+A set of E polylines is stored as ``points`` (K x d) with ``offsets`` (E + 1):
+polyline ``e`` is ``points[offsets[e]:offsets[e + 1]]``.  Closed polylines
+repeat their first point at the end.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy import ndimage as ndi
+
+__all__ = ["segment_lengths", "polyline_lengths", "smooth_polylines", "edge_index"]
+
+
+def edge_index(offsets):
+    """Polyline index of every point, shape (K,)."""
+    counts = np.diff(offsets)
+    return np.repeat(np.arange(len(counts)), counts)
+
+
+def segment_lengths(points, offsets):
+    """Length of every segment between consecutive points of the same polyline.
+
+    Returns an array of K - E values: the segments of polyline ``e`` are
+    ``offsets[e] - e`` up to ``offsets[e + 1] - e - 1``.
+    """
+    steps = np.linalg.norm(np.diff(points, axis=0), axis=1)
+    keep = np.ones(len(steps), bool)
+    keep[offsets[1:-1] - 1] = False  # the step from one polyline into the next
+    return steps[keep[: len(steps)]] if len(steps) else steps
+
+
+def polyline_lengths(points, offsets):
+    """Length of every polyline (sum of its segment lengths), shape (E,)."""
+    points = np.asarray(points, dtype=float)
+    offsets = np.asarray(offsets)
+    n_edges = len(offsets) - 1
+    if n_edges == 0:
+        return np.zeros(0)
+    steps = np.zeros(len(points))
+    if len(points) > 1:
+        steps[1:] = np.linalg.norm(np.diff(points, axis=0), axis=1)
+    steps[offsets[:-1]] = 0.0  # a polyline's first point has no incoming segment
+    csum = np.concatenate([[0.0], np.cumsum(steps)])
+    return csum[offsets[1:]] - csum[offsets[:-1]]
+
+
+def smooth_polylines(points, offsets, sigma, closed=None):
+    """Gaussian smoothing along each polyline, with end points kept fixed.
+
+    Digitised centrelines zig-zag between voxel centres, so the plain sum of
+    voxel steps over-estimates length by 5-13 % depending on direction
+    (Kiryati & Szekely 1993, Pattern Recognit 26:1623; Coeurjolly & Klette
+    2004, IEEE TPAMI 26:252).  Light smoothing removes the zig-zag.  Open
+    polylines are padded by point reflection about their end points
+    (``2 P0 - P_k``), which keeps the ends fixed and maps straight lines to
+    themselves; closed polylines wrap around.
+
+    Parameters
+    ----------
+    points : (K, d) array
+    offsets : (E + 1,) int array
+    sigma : float
+        Standard deviation of the Gaussian, in points (about one voxel each).
+        0 returns a copy.
+    closed : (E,) bool array, optional
+        Polylines to treat as closed loops (first point == last point).
+
+    Returns
+    -------
+    (K, d) array
+    """
+    points = np.asarray(points, dtype=float)
+    offsets = np.asarray(offsets, dtype=np.int64)
+    if sigma <= 0 or len(points) == 0:
+        return points.copy()
+    n_edges = len(offsets) - 1
+    closed = np.zeros(n_edges, bool) if closed is None else np.asarray(closed, bool)
+    half = int(np.ceil(3 * sigma))
+    counts = np.diff(offsets)
+    padded_counts = counts + 2 * half
+    pstarts = np.concatenate([[0], np.cumsum(padded_counts)])
+    eid = np.repeat(np.arange(n_edges), padded_counts)
+    local = np.arange(pstarts[-1]) - pstarts[eid] - half  # position within polyline, may be <0 or >=n
+    n = counts[eid]
+    o = offsets[eid]
+    is_closed = closed[eid]
+
+    # Open polylines: point reflection about the end points.
+    left = local < 0
+    right = local >= n
+    mid = ~(left | right)
+    src = np.where(mid, local, 0)
+    mirror_left = np.minimum(-local, n - 1)
+    mirror_right = np.maximum(2 * (n - 1) - local, 0)
+    values = np.empty((len(local), points.shape[1]))
+    values[mid] = points[o[mid] + src[mid]]
+    values[left] = 2 * points[o[left]] - points[o[left] + mirror_left[left]]
+    values[right] = 2 * points[o[right] + n[right] - 1] - points[o[right] + mirror_right[right]]
+    # Closed polylines: wrap around the m = n - 1 distinct points.
+    if closed.any():
+        m = np.maximum(n - 1, 1)
+        wrap = o + np.mod(local, m)
+        values[is_closed] = points[wrap[is_closed]]
+
+    x = np.arange(-half, half + 1)
+    kernel = np.exp(-0.5 * (x / sigma) ** 2)
+    kernel /= kernel.sum()
+    smoothed = ndi.correlate1d(values, kernel, axis=0, mode="nearest")
+    out = smoothed[mid]
+    # End points exactly fixed for open polylines; closed ones close on themselves.
+    first, last = offsets[:-1], offsets[1:] - 1
+    nonempty = counts > 0
+    open_ = ~closed & nonempty
+    out[first[open_]] = points[first[open_]]
+    out[last[open_]] = points[last[open_]]
+    cl = closed & nonempty
+    out[last[cl]] = out[first[cl]]
+    return out
