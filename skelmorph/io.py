@@ -26,9 +26,11 @@ __all__ = [
     "validate_spacing",
     "normalise_unit",
     "atomic_write",
+    "atomic_path",
     "write_json",
     "write_csv",
     "estimate_memory",
+    "write_tiff",
 ]
 
 IMAGE_SUFFIXES = {".tif", ".tiff", ".png", ".jpg", ".jpeg", ".bmp", ".gif"}
@@ -195,7 +197,7 @@ def _tiff_spacing(tif):
             return num / den if den else 0.0
         px, py = per_unit(xres), per_unit(yres)
         if px > 0 and py > 0:
-            if unit is not None and (px, py) != (1.0, 1.0):
+            if unit is not None and normalise_unit(unit) != "px":
                 yx = (1.0 / py, 1.0 / px)
             elif res_unit == 3:  # centimetre
                 yx, unit = (1e4 / py, 1e4 / px), "um"
@@ -358,8 +360,8 @@ def read_image(path, spacing=None, unit=None, channel=None):
 # --------------------------------------------------------------------------- writing
 
 @contextlib.contextmanager
-def atomic_write(path, mode="w", **kwargs):
-    """Open a temporary file beside ``path``; rename it over ``path`` on success.
+def atomic_path(path):
+    """Yield a temporary path beside ``path``; rename it over ``path`` on success.
 
     A reader never sees a half-written file, and a crash leaves the old file
     (or none) in place.
@@ -367,16 +369,23 @@ def atomic_write(path, mode="w", **kwargs):
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    os.close(fd)
     try:
-        with os.fdopen(fd, mode, **kwargs) as fh:
-            yield fh
-            fh.flush()
-            os.fsync(fh.fileno())
+        yield Path(tmp)
         os.replace(tmp, path)
     except BaseException:
         with contextlib.suppress(OSError):
             os.unlink(tmp)
         raise
+
+
+@contextlib.contextmanager
+def atomic_write(path, mode="w", **kwargs):
+    """Open a file for writing that appears at ``path`` only once complete."""
+    with atomic_path(path) as tmp, open(tmp, mode, **kwargs) as fh:
+        yield fh
+        fh.flush()
+        os.fsync(fh.fileno())
 
 
 def _jsonable(obj):
@@ -423,3 +432,26 @@ def write_csv(path, columns):
         if n:
             rows = np.stack(text_cols, axis=1) if text_cols else np.empty((n, 0), object)
             fh.write("\n".join(",".join(r) for r in rows) + "\n")
+
+
+def write_tiff(path, array, spacing, unit="um"):
+    """Write a 2D/3D image as TIFF with its voxel size, atomically.
+
+    The voxel size goes into the resolution tags and an ImageJ-style
+    description (``spacing`` for z, ``unit``), which :func:`read_image` reads
+    back.  Boolean masks are written as 0/255 uint8.
+    """
+    import tifffile
+
+    array = np.asarray(array)
+    if array.dtype == bool:
+        array = array.astype(np.uint8) * 255
+    spacing = validate_spacing(spacing, array.ndim)
+    unit = normalise_unit(unit)
+    meta = {"unit": "micron" if unit == "um" else unit}
+    if array.ndim == 3:
+        meta["spacing"] = spacing[0]
+        meta["axes"] = "ZYX"
+    with atomic_path(path) as tmp:
+        tifffile.imwrite(tmp, array, imagej=True, resolution=(1.0 / spacing[-1], 1.0 / spacing[-2]),
+                         metadata=meta)
