@@ -112,6 +112,47 @@ def voxel_links(coords, shape):
     return np.concatenate(pairs) if pairs else np.zeros((0, 2), np.int64)
 
 
+def small_cycle_voxels(coords, links):
+    """Voxels of 2x2(x2) blocks whose links close a cycle.
+
+    All voxels of a 2x2x2 block are mutually 26-adjacent, so a cycle inside
+    one block encloses no background: it is not a loop of the structure.
+    Such voxels are made part of a junction node, where the cycle collapses.
+    A block holds a cycle when its links are at least as many as its voxels.
+    """
+    n, ndim = coords.shape
+    if n == 0 or len(links) == 0:
+        return np.zeros(n, bool)
+    corners = np.array(list(itertools.product((0, 1), repeat=ndim)))
+    span = coords.max(axis=0) + 2
+    mult = np.ones(ndim, np.int64)
+    for a in range(ndim - 2, -1, -1):
+        mult[a] = mult[a + 1] * span[a + 1]
+    base = coords.astype(np.int64) + 1  # block origins may sit at -1
+    # Blocks containing each voxel: origins voxel - corner.
+    vox_blocks = ((base[:, None, :] - corners[None]) @ mult).ravel()
+    vox_owner = np.repeat(np.arange(n), len(corners))
+    # Blocks containing each link: origins <= both ends <= origin + 1.
+    lo = np.minimum(base[links[:, 0]], base[links[:, 1]])
+    hi = np.maximum(base[links[:, 0]], base[links[:, 1]])
+    link_blocks = []
+    for c in corners:
+        origin = hi - c
+        ok = np.all(origin >= lo - 0, axis=1) & np.all(origin <= lo, axis=1)
+        link_blocks.append((origin[ok] @ mult))
+    link_blocks = np.concatenate(link_blocks)
+    blocks, vcount = np.unique(vox_blocks, return_counts=True)
+    lcount = np.zeros(len(blocks), np.int64)
+    pos = np.searchsorted(blocks, link_blocks)
+    np.add.at(lcount, pos, 1)
+    cyclic = blocks[(lcount >= vcount) & (vcount >= 3)]
+    if len(cyclic) == 0:
+        return np.zeros(n, bool)
+    flagged = np.zeros(n, bool)
+    flagged[vox_owner[np.isin(vox_blocks, cyclic)]] = True
+    return flagged
+
+
 def _boundary_background(mask):
     """Background voxels that touch the object (26/8-neighbourhood)."""
     grown = mask.view(np.uint8)
@@ -288,7 +329,8 @@ def _raw_graph(skel, mask, spacing, radius_method, timings):
     with _timed(timings, "radii"):
         vox_r = centreline_radius(mask, coords, spacing, method=radius_method)
     with _timed(timings, "graph"):
-        is_node = deg != 2
+        clique = small_cycle_voxels(coords, links)
+        is_node = (deg != 2) | clique
         # Rings without any junction: promote one voxel per ring to an anchor node.
         path_links = links[~is_node[links[:, 0]] & ~is_node[links[:, 1]]]
         ncomp, lab = _components(n, path_links)
@@ -308,11 +350,11 @@ def _raw_graph(skel, mask, spacing, radius_method, timings):
             slab_deg = np.bincount(path_links.ravel(), minlength=n)
 
         # Node ids: touching junction voxels (degree >= 3) form one node.
-        junction = deg >= 3
+        junction = (deg >= 3) | clique
         jlinks = links[junction[links[:, 0]] & junction[links[:, 1]]]
         _, jlab = _components(n, jlinks)
         node_vox = np.flatnonzero(is_node)
-        key = np.where(junction[node_vox], jlab[node_vox], n + node_vox)  # non-junctions stand alone
+        key = np.where(junction[node_vox], jlab[node_vox], n + node_vox)  # others stand alone
         uniq, node_id_of = np.unique(key, return_inverse=True)
         node_of_voxel = np.full(n, -1)
         node_of_voxel[node_vox] = node_id_of
@@ -407,7 +449,24 @@ def _merge_close_junctions(w):
     if not close.any():
         return False
     n = len(w.node_pos)
-    _, group = _components(n, np.column_stack([u[close], v[close]]))
+    # Contract a spanning forest of the close edges only; the others close a
+    # loop and stay, as self-loops of the merged node.
+    parent = np.arange(n)
+
+    def find(x):
+        while parent[x] != x:
+            parent[x] = parent[parent[x]]
+            x = parent[x]
+        return x
+
+    contract = np.zeros(len(u), bool)
+    for e in np.flatnonzero(close):  # few edges: junction pairs closer than their radii
+        a, b = find(u[e]), find(v[e])
+        if a != b:
+            parent[b] = a
+            contract[e] = True
+    close = contract
+    group = np.array([find(x) for x in range(n)])
     # Representative of each group: its member with the largest radius.
     order = np.lexsort((-w.node_r, group))
     rep_of_group = np.full(group.max() + 1, -1)
@@ -543,6 +602,71 @@ def _extend_tips(w):
         w.pts[e] = p
 
 
+def _drop_spurious_loops(w, euler):
+    """Remove the loops the voxel graph has beyond the skeleton's true count.
+
+    Thinning preserves the Euler characteristic, and a curve skeleton has no
+    cavities, so its number of independent loops is components - euler.  A
+    few voxel configurations around thick junctions still close tiny cycles
+    in the graph that enclose no background; the excess is removed as the
+    shortest edges that lie on a short cycle.
+    """
+    n = len(w.node_pos)
+    u, v = np.asarray(w.u, np.int64), np.asarray(w.v, np.int64)
+    if len(u) == 0:
+        return 0
+    ncomp, _ = _components(n, np.column_stack([u, v]))
+    excess = (len(u) - n + ncomp) - (ncomp - euler)
+    if excess <= 0:
+        return 0
+    length = w.raw_lengths()
+    adj = {}
+    for e, (a, b) in enumerate(zip(u.tolist(), v.tolist())):
+        adj.setdefault(a, set()).add(e)
+        adj.setdefault(b, set()).add(e)
+
+    def on_short_cycle(e, hops=4):
+        """Is there another path from u[e] to v[e] within ``hops`` edges?"""
+        a, b = int(u[e]), int(v[e])
+        if a == b:
+            return True
+        frontier, seen = {a}, {a}
+        for _ in range(hops):
+            nxt = set()
+            for x in frontier:
+                for f in adj[x]:
+                    if f == e:
+                        continue
+                    y = int(v[f]) if int(u[f]) == x else int(u[f])
+                    if y == b:
+                        return True
+                    if y not in seen:
+                        seen.add(y)
+                        nxt.add(y)
+            frontier = nxt
+        return False
+
+    # Candidates: edges shorter than the circumference at their ends (a loop
+    # that short cannot go round a hole of the structure; common practice).
+    limit = 2 * np.pi * np.maximum(w.node_r[u], w.node_r[v])
+    drop = []
+    for e in np.argsort(length, kind="stable"):
+        if len(drop) == excess or length[e] > limit[e]:
+            if len(drop) == excess:
+                break
+            continue
+        if on_short_cycle(e):
+            drop.append(e)
+            adj[int(u[e])].discard(e)
+            adj[int(v[e])].discard(e)
+    keep = np.setdiff1d(np.arange(len(u)), drop)
+    w.u = [w.u[e] for e in keep]
+    w.v = [w.v[e] for e in keep]
+    w.pts = [w.pts[e] for e in keep]
+    w.rad = [w.rad[e] for e in keep]
+    return len(drop)
+
+
 def _finish(w, spacing, unit, shape, smoothing, meta):
     """Drop dead nodes, flatten polylines, smooth them and measure lengths."""
     n = len(w.node_pos)
@@ -589,6 +713,10 @@ def graph_from_skeleton(skel, mask, spacing=None, *, unit="um", prune=True, prun
         raise InputError(f"skeleton shape {skel.shape} differs from mask shape {mask.shape}")
     w = _raw_graph(skel, mask, spacing, radius_method, timings)
     w.shape, w.spacing = mask.shape, spacing
+    with _timed(timings, "topology"):
+        from skimage.measure import euler_number
+
+        _drop_spurious_loops(w, euler_number(skel, connectivity=skel.ndim))
     with _timed(timings, "graph"):
         for _ in range(100):  # each pass removes something; stable after a few
             changed = False
