@@ -602,11 +602,25 @@ def _extend_tips(w):
         w.pts[e] = p
 
 
-def _drop_spurious_loops(w, euler):
+def count_cavities(mask):
+    """Enclosed background components (face-connected, not touching the edge)."""
+    labels, n = ndi.label(~mask)
+    if n == 0:
+        return 0
+    edge = set()
+    for axis in range(mask.ndim):
+        for index in (0, -1):
+            edge.update(np.unique(np.take(labels, index, axis=axis)).tolist())
+    edge.discard(0)
+    return n - len(edge)
+
+
+def _drop_spurious_loops(w, euler, cavities):
     """Remove the loops the voxel graph has beyond the skeleton's true count.
 
-    Thinning preserves the Euler characteristic, and a curve skeleton has no
-    cavities, so its number of independent loops is components - euler.  A
+    Thinning preserves the Euler characteristic chi = b0 - b1 + b2, so the
+    number of independent loops is components + cavities - chi
+    (``cavities`` is called only when the graph has too many loops).  A
     few voxel configurations around thick junctions still close tiny cycles
     in the graph that enclose no background; the excess is removed as the
     shortest edges that lie on a short cycle.
@@ -617,6 +631,8 @@ def _drop_spurious_loops(w, euler):
         return 0
     ncomp, _ = _components(n, np.column_stack([u, v]))
     excess = (len(u) - n + ncomp) - (ncomp - euler)
+    if excess > 0:
+        excess -= cavities()
     if excess <= 0:
         return 0
     length = w.raw_lengths()
@@ -716,7 +732,8 @@ def graph_from_skeleton(skel, mask, spacing=None, *, unit="um", prune=True, prun
     with _timed(timings, "topology"):
         from skimage.measure import euler_number
 
-        _drop_spurious_loops(w, euler_number(skel, connectivity=skel.ndim))
+        _drop_spurious_loops(w, euler_number(skel, connectivity=skel.ndim),
+                             lambda: count_cavities(mask))
     with _timed(timings, "graph"):
         for _ in range(100):  # each pass removes something; stable after a few
             changed = False
