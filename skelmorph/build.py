@@ -25,6 +25,7 @@ nodes that pruning changes):
 
 from __future__ import annotations
 
+import dataclasses
 import itertools
 import time
 from contextlib import contextmanager
@@ -816,6 +817,7 @@ def skeleton_graph(mask, spacing=None, prune=True, *, unit="um", prune_factor=1.
     mask = mask.astype(bool) if mask.dtype == bool else (mask == mask.max()) & (mask != mask.min())
     check_mask(mask)
     spacing = validate_spacing(1.0 if spacing is None else spacing, mask.ndim)
+    source_spacing, source_shape = spacing, mask.shape
     resampled = False
     ratio = max(spacing) / min(spacing)
     if isotropic is True or (isotropic == "auto" and ratio > ANISOTROPY_LIMIT):
@@ -827,9 +829,12 @@ def skeleton_graph(mask, spacing=None, prune=True, *, unit="um", prune_factor=1.
     with _timed(timings, "skeletonize"):
         skel = skeletonize(mask, method=method)
         skel = _restore_vanished(mask, skel)
-    return graph_from_skeleton(skel, mask, spacing, unit=unit, prune=prune,
+    graph = graph_from_skeleton(skel, mask, spacing, unit=unit, prune=prune,
                                prune_factor=prune_factor, min_branch_length=min_branch_length,
                                merge_junctions=merge_junctions, extend_tips=extend_tips,
                                smoothing=smoothing, timings=timings,
-                               meta={"resampled_isotropic": resampled,
-                                     "thinning": method or ("zhang" if mask.ndim == 2 else "lee")})
+                                meta={"resampled_isotropic": resampled,
+                                      "thinning_spacing": list(spacing),
+                                      "thinning": method or ("zhang" if mask.ndim == 2 else "lee")})
+    # Report the source image's voxel size and shape, not the resampled ones.
+    return dataclasses.replace(graph, spacing=source_spacing, shape=tuple(source_shape))

@@ -207,16 +207,44 @@ def _tiff_spacing(tif):
     return yx, (float(z) if z is not None else None), unit
 
 
+class _LogCollector:
+    """Collects tifffile's log warnings, which is how it reports damaged files."""
+
+    def __init__(self):
+        import logging
+
+        self.messages = []
+        self.logger = logging.getLogger("tifffile")
+        self.handler = logging.Handler(level=logging.WARNING)
+        self.handler.emit = lambda record: self.messages.append(record.getMessage())
+
+    def __enter__(self):
+        self.logger.addHandler(self.handler)
+        return self
+
+    def __exit__(self, *exc):
+        self.logger.removeHandler(self.handler)
+
+
 def _read_tiff(path):
     import tifffile
 
     try:
-        with tifffile.TiffFile(path) as tif:
+        with _LogCollector() as log, tifffile.TiffFile(path) as tif:
             series = tif.series[0]
             shape, dtype = series.shape, series.dtype
             yx, z, unit = _tiff_spacing(tif)
             photometric = getattr(tif.pages[0], "photometric", None)
             contiguous = series.dataoffset is not None
+            damaged = [m for m in log.messages if "invalid" in m or "corrupt" in m or "truncat" in m]
+            if damaged:
+                raise ImageReadError(f"TIFF {path} is damaged or truncated ({damaged[0]})")
+            if contiguous:
+                need = series.dataoffset + int(np.prod(shape)) * np.dtype(dtype).itemsize
+                size = os.path.getsize(path)
+                if need > size:
+                    raise ImageReadError(f"TIFF {path} is truncated: its image data needs {need} "
+                                         f"bytes but the file has {size}")
         is_rgb = photometric is not None and int(photometric) == 2
         array = None
         if contiguous and not is_rgb:
@@ -229,6 +257,8 @@ def _read_tiff(path):
                 array = None
         if array is None:
             array = tifffile.imread(path)
+    except ImageReadError:
+        raise
     except Exception as exc:  # noqa: BLE001 - tifffile raises many kinds
         raise ImageReadError(f"cannot read TIFF {path}: {exc.__class__.__name__}: {exc}. "
                              f"The file may be truncated or not a TIFF.") from None

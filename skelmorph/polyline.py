@@ -87,17 +87,20 @@ def smooth_polylines(points, offsets, sigma, closed=None):
     o = offsets[eid]
     is_closed = closed[eid]
 
-    # Open polylines: point reflection about the end points.
-    left = local < 0
-    right = local >= n
-    mid = ~(left | right)
-    src = np.where(mid, local, 0)
-    mirror_left = np.minimum(-local, n - 1)
-    mirror_right = np.maximum(2 * (n - 1) - local, 0)
-    values = np.empty((len(local), points.shape[1]))
-    values[mid] = points[o[mid] + src[mid]]
-    values[left] = 2 * points[o[left]] - points[o[left] + mirror_left[left]]
-    values[right] = 2 * points[o[right] + n[right] - 1] - points[o[right] + mirror_right[right]]
+    # Open polylines: point reflection about the end points, repeated for
+    # short polylines.  Reflecting about P0 and then about P_m (m = n - 1) is a
+    # translation by 2 (P_m - P0), so index i = 2 m q + r maps to
+    # P(r) + 2 q (P_m - P0), with P(r) = 2 P_m - P(2m - r) for r > m.
+    mid = (local >= 0) & (local < n)
+    m = np.maximum(n - 1, 1)
+    q, r = np.divmod(local, 2 * m)
+    upper = r > m
+    r_in = np.where(upper, 2 * m - r, r)
+    r_in = np.where(n > 1, r_in, 0)
+    p0, pm = points[o], points[o + n - 1]
+    base = points[o + r_in]
+    base = np.where(upper[:, None], 2 * pm - base, base)
+    values = base + (2 * q)[:, None] * (pm - p0)
     # Closed polylines: wrap around the m = n - 1 distinct points.
     if closed.any():
         m = np.maximum(n - 1, 1)

@@ -1,0 +1,127 @@
+"""Graph exports, the results folder and the command line."""
+
+import json
+import subprocess
+import sys
+
+import networkx as nx
+import numpy as np
+import pytest
+
+import skelmorph as sm
+from skelmorph import phantoms as ph
+from skelmorph.cli import main
+from skelmorph.graph import SkeletonGraph
+from skelmorph.io import write_tiff
+
+
+@pytest.fixture(scope="module")
+def frame_graph():
+    p = ph.wire_frame(n_nodes=2)
+    return sm.skeleton_graph(p.mask, p.spacing, unit="um")
+
+
+def test_graphml_read_by_networkx(frame_graph, tmp_path):
+    frame_graph.write(tmp_path / "g.graphml")
+    G = nx.read_graphml(tmp_path / "g.graphml")
+    assert G.number_of_nodes() == 8 and G.number_of_edges() == 12
+    # networkx (reference): the cube graph Q3 has 384 spanning trees.
+    assert round(nx.number_of_spanning_trees(nx.Graph(G))) == 384
+    total = sum(d["length"] for _, _, d in G.edges(data=True))
+    assert total == pytest.approx(frame_graph.edge_length.sum(), rel=1e-5)
+
+
+def test_vtp_read_by_pyvista(frame_graph, tmp_path):
+    pv = pytest.importorskip("pyvista")
+    frame_graph.write(tmp_path / "g.vtp")
+    poly = pv.read(tmp_path / "g.vtp")
+    assert poly.n_points == len(frame_graph.points)
+    assert poly.n_lines == frame_graph.n_edges
+    np.testing.assert_allclose(poly.point_data["radius"], frame_graph.point_radius, rtol=1e-5)
+    np.testing.assert_allclose(poly.points[:, ::-1], frame_graph.points, rtol=1e-5, atol=1e-4)
+    mem = frame_graph.to_vtk()
+    assert mem.n_lines == frame_graph.n_edges
+
+
+@pytest.mark.parametrize("suffix", [".json", ".npz"])
+def test_roundtrip(frame_graph, tmp_path, suffix):
+    frame_graph.write(tmp_path / f"g{suffix}")
+    g = SkeletonGraph.read(tmp_path / f"g{suffix}")
+    for name in SkeletonGraph._ARRAYS:
+        np.testing.assert_allclose(getattr(g, name), getattr(frame_graph, name))
+    assert g.spacing == frame_graph.spacing and g.unit == "um" and g.meta == frame_graph.meta
+
+
+def test_unknown_format(frame_graph, tmp_path):
+    with pytest.raises(sm.SkelmorphError, match="unknown graph format"):
+        frame_graph.write(tmp_path / "g.xyz")
+
+
+def test_cli_analyze_writes_results(tmp_path, capsys):
+    p = ph.y_bifurcation(spacing=(2.0, 1.0, 1.0))
+    write_tiff(tmp_path / "y.tif", p.mask, p.spacing)
+    assert main(["analyze", str(tmp_path / "y.tif"), "--out", str(tmp_path / "r")]) == 0
+    out = capsys.readouterr().out
+    assert "junctions 1, tips 3" in out and "not a diagnosis" in out
+    for name in ("graph.graphml", "graph.vtp", "nodes.csv", "branches.csv", "summary.json"):
+        assert (tmp_path / "r" / name).stat().st_size > 0
+    summary = json.loads((tmp_path / "r" / "summary.json").read_text())
+    for key in ("total_length", "n_nodes", "n_branches", "n_junctions", "n_tips", "n_components",
+                "cycle_rank", "spacing", "unit", "skelmorph_version"):
+        assert key in summary
+    assert summary["spacing"] == [2.0, 1.0, 1.0] and summary["unit"] == "um"
+    rows = (tmp_path / "r" / "branches.csv").read_text().splitlines()
+    assert rows[0].split(",") == ["branch", "node_a", "node_b", "length", "chord", "tortuosity",
+                                  "radius_mean", "radius_min", "radius_max", "kind"]
+    assert len(rows) == 4 and all(r.endswith("terminal") for r in rows[1:])
+
+
+def test_cli_spacing_option(tmp_path, capsys):
+    np.save(tmp_path / "m.npy", ph.torus().mask)
+    assert main(["analyze", str(tmp_path / "m.npy"), "--spacing", "0.5", "--unit", "mm",
+                 "--out", str(tmp_path / "r")]) == 0
+    s = json.loads((tmp_path / "r" / "summary.json").read_text())
+    assert s["unit"] == "mm" and s["total_length"] == pytest.approx(np.pi * 30, rel=0.02)
+
+
+@pytest.mark.parametrize("args,message", [
+    (["analyze", "/no/such/file.tif"], "no such file"),
+    (["analyze", "IMG", "--spacing", "0", "1", "1"], "spacing"),
+])
+def test_cli_bad_input_exit_2_one_line(tmp_path, capsys, args, message):
+    np.save(tmp_path / "m.npy", ph.torus().mask)
+    args = [str(tmp_path / "m.npy") if a == "IMG" else a for a in args]
+    assert main(args + ["--out", str(tmp_path / "o")]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith("skelmorph: error:") and message in err[0]
+
+
+def test_cli_empty_image_exit_2(tmp_path, capsys):
+    np.save(tmp_path / "e.npy", np.zeros((10, 10, 10), np.uint8))
+    assert main(["analyze", str(tmp_path / "e.npy"), "--spacing", "1"]) == 2
+    assert "empty" in capsys.readouterr().err
+
+
+def test_cli_phantom(tmp_path):
+    assert main(["phantom", "lattice", "--out", str(tmp_path / "lat.tif")]) == 0
+    truth = json.loads((tmp_path / "lat.json").read_text())
+    assert truth["truth"]["cycle_rank"] == 28
+    arr, spacing, _ = sm.read_image(tmp_path / "lat.tif")
+    assert arr.shape == tuple(truth["shape"])
+
+
+def test_console_script_runs_as_module(tmp_path):
+    r = subprocess.run([sys.executable, "-m", "skelmorph.cli", "analyze", str(tmp_path / "x.tif")],
+                       capture_output=True, text=True)
+    assert r.returncode == 2 and "Traceback" not in r.stderr
+
+
+def test_demo(tmp_path, capsys):
+    assert main(["demo", str(tmp_path / "d"), "--quiet"]) == 0
+    out = capsys.readouterr().out
+    assert "fine" in out and "coarse" in out and "not a diagnosis" in out
+    cohort = (tmp_path / "d" / "cohort.csv").read_text().splitlines()
+    assert len(cohort) == 9
+    comp = json.loads((tmp_path / "d" / "comparison.json").read_text())
+    # Smaller pores give more struts: the fine group has more loops per volume.
+    assert comp["groups"]["fine"]["cycle_rank"]["mean"] > comp["groups"]["coarse"]["cycle_rank"]["mean"]

@@ -1,0 +1,54 @@
+"""Graph invariants on random unions of tubes (hypothesis)."""
+
+import numpy as np
+from hypothesis import given
+from hypothesis import strategies as st
+
+import skelmorph as sm
+from skelmorph.phantoms import draw_tubes
+
+segment = st.tuples(*[st.floats(4, 36) for _ in range(6)], st.floats(1.2, 3.0))
+
+
+@given(st.lists(segment, min_size=1, max_size=5))
+def test_invariants_of_random_tubes(segs):
+    starts = np.array([s[:3] for s in segs])
+    ends = np.array([s[3:6] for s in segs])
+    radii = np.array([s[6] for s in segs])
+    mask = draw_tubes((40, 40, 40), (1.0, 1.0, 1.0), starts, ends, radii)
+    if not mask.any():
+        return
+    g = sm.skeleton_graph(mask)
+    s = sm.summarize(g)
+    # Handshake lemma: degrees sum to twice the number of edges.
+    assert g.node_degree.sum() == 2 * g.n_edges
+    assert s["cycle_rank"] == g.n_edges - g.n_nodes + s["n_components"] >= 0
+    assert np.all(g.edge_length > 0)
+    assert np.all(g.point_radius > 0)
+    # Polylines start and end at their nodes.
+    np.testing.assert_allclose(g.points[g.offsets[:-1]], g.nodes[g.edges[:, 0]], atol=1e-9)
+    np.testing.assert_allclose(g.points[g.offsets[1:] - 1], g.nodes[g.edges[:, 1]], atol=1e-9)
+    # Node order is irrelevant: relabelling nodes changes no summary value.
+    perm = np.random.default_rng(0).permutation(g.n_nodes)
+    inv = np.argsort(perm)
+    from dataclasses import replace
+    h = replace(g, nodes=g.nodes[perm], node_radius=g.node_radius[perm],
+                node_degree=g.node_degree[perm], edges=inv[g.edges])
+    def same(d):
+        return {k: ("nan" if isinstance(v, float) and v != v else v) for k, v in d.items()}
+
+    assert same(sm.summarize(h)) == same(s)
+
+
+@given(st.integers(0, 2**16))
+def test_smoothing_keeps_lines_and_ends(seed):
+    from skelmorph.polyline import smooth_polylines
+
+    rng = np.random.default_rng(seed)
+    n = rng.integers(2, 30)
+    d = rng.normal(size=3)
+    line = np.outer(np.arange(n), d) + rng.normal(size=3)
+    offsets = np.array([0, n])
+    out = smooth_polylines(line, offsets, sigma=2.0)
+    # Point reflection about the ends maps a straight line to itself.
+    np.testing.assert_allclose(out, line, atol=1e-9)
