@@ -32,6 +32,7 @@ def _parser():
     a.add_argument("--spacing", type=float, nargs="+", metavar="S",
                    help="voxel size in (z) y x order, or one value; overrides the file")
     a.add_argument("--unit", default=None, help="length unit of the spacing (default um)")
+    a.add_argument("--quiet", "-q", action="store_true", help="no progress bar")
     a.add_argument("--channel", default=None,
                    help="colour images: channel index (0, 1, 2) or 'grey'")
     g = a.add_argument_group("segmentation (grey images)")
@@ -84,7 +85,7 @@ def _cmd_analyze(args):
                      min_object_size=args.min_object_size, max_hole_size=args.max_hole_size,
                      prune=not args.no_prune, prune_factor=args.prune_factor,
                      min_branch_length=args.min_branch_length, extend_tips=args.extend_tips,
-                     smoothing=args.smoothing, out=out)
+                     smoothing=args.smoothing, out=out, progress=not args.quiet)
     s = result.summary
     u = s["unit"]
     print(f"{args.image}: {len(s['image_shape'])}D image {tuple(s['image_shape'])}, "

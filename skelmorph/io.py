@@ -178,15 +178,38 @@ def _pick_channel(array, channel, source):
                              f"({array.shape[-1]} channels)") from None
 
 
-def _tiff_spacing(tif):
-    """Voxel size and unit from TIFF tags and an ImageJ-style description.
+def _description_metadata(tif):
+    """Voxel-size hints from the first page's description.
 
-    Returns ``(spacing_yx_or_zyx or None, unit or None)``.
+    Two common forms: a JSON object (as tifffile writes) and ``key=value``
+    lines (a widespread microscopy convention: ``unit=micron``,
+    ``spacing=2.0`` for the slice distance).
+    """
+    desc = tif.pages[0].description or ""
+    desc = desc.strip()
+    if desc.startswith("{"):
+        try:
+            meta = json.loads(desc)
+            return meta if isinstance(meta, dict) else {}
+        except ValueError:
+            return {}
+    meta = {}
+    for line in desc.splitlines():
+        key, sep, value = line.partition("=")
+        if sep:
+            meta[key.strip().lower()] = value.strip()
+    return meta
+
+
+def _tiff_spacing(tif):
+    """Voxel size and unit from TIFF tags and the page description.
+
+    Returns ``(yx or None, z or None, unit or None)``.
     """
     page = tif.pages[0]
     tags = page.tags
-    ij = tif.imagej_metadata or {}
-    unit = ij.get("unit")
+    desc = _description_metadata(tif)
+    unit = desc.get("unit")
     yx = None
     xres, yres = tags.get("XResolution"), tags.get("YResolution")
     res_unit = tags.get("ResolutionUnit")
@@ -203,8 +226,12 @@ def _tiff_spacing(tif):
                 yx, unit = (1e4 / py, 1e4 / px), "um"
             elif res_unit == 2 and px not in (72.0, 96.0):  # inch; 72/96 dpi are screen defaults
                 yx, unit = (25400.0 / py, 25400.0 / px), "um"
-    z = ij.get("spacing")
-    return yx, (float(z) if z is not None else None), unit
+    z = desc.get("spacing")
+    try:
+        z = float(z) if z is not None else None
+    except (TypeError, ValueError):
+        z = None
+    return yx, z, unit
 
 
 class _LogCollector:
@@ -329,8 +356,8 @@ def read_image(path, spacing=None, unit=None, channel=None):
     spacing : float or sequence of float, optional
         Voxel size per axis, ``(z, y, x)`` order.  Overrides the file's
         metadata (a warning is given when they disagree).  Without it the
-        file's metadata is used (TIFF resolution tags and the ImageJ-style
-        ``spacing``/``unit`` description), and failing that 1 per axis with a
+        file's metadata is used (TIFF resolution tags and a ``spacing``/``unit``
+        page description), and failing that 1 per axis with a
         warning.
     unit : str, optional
         Length unit of ``spacing``; default ``"um"`` unless the file says otherwise.
@@ -467,9 +494,9 @@ def write_csv(path, columns):
 def write_tiff(path, array, spacing, unit="um"):
     """Write a 2D/3D image as TIFF with its voxel size, atomically.
 
-    The voxel size goes into the resolution tags and an ImageJ-style
-    description (``spacing`` for z, ``unit``), which :func:`read_image` reads
-    back.  Boolean masks are written as 0/255 uint8.
+    The voxel size goes into the resolution tags and a JSON page description
+    (``spacing`` for z, ``unit``), which :func:`read_image` reads back.
+    Boolean masks are written as 0/255 uint8.
     """
     import tifffile
 
@@ -478,10 +505,10 @@ def write_tiff(path, array, spacing, unit="um"):
         array = array.astype(np.uint8) * 255
     spacing = validate_spacing(spacing, array.ndim)
     unit = normalise_unit(unit)
-    meta = {"unit": "micron" if unit == "um" else unit}
+    meta = {"unit": unit}
     if array.ndim == 3:
         meta["spacing"] = spacing[0]
-        meta["axes"] = "ZYX"
     with atomic_path(path) as tmp:
-        tifffile.imwrite(tmp, array, imagej=True, resolution=(1.0 / spacing[-1], 1.0 / spacing[-2]),
+        tifffile.imwrite(tmp, array, photometric="minisblack",
+                         resolution=(1.0 / spacing[-1], 1.0 / spacing[-2]),
                          metadata=meta)

@@ -37,7 +37,7 @@ class AnalysisResult:
 def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dark=False,
             min_object_size=None, max_hole_size=None, prune=True, prune_factor=1.5,
             min_branch_length=0.0, extend_tips=False, smoothing=2.0, merge_junctions=True,
-            out=None):
+            out=None, progress=False):
     """Analyse one image end to end.
 
     Parameters
@@ -53,11 +53,16 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
     out : str or Path, optional
         Folder to write ``graph.graphml``, ``graph.vtp``, ``nodes.csv``,
         ``branches.csv`` and ``summary.json`` into.
+    progress : bool
+        Show a progress bar over the stages on stderr.
 
     Returns
     -------
     AnalysisResult
     """
+    from .progress import Progress
+
+    bar = Progress(4 + (out is not None), "analyze", enabled=progress)
     timings = {}
     t0 = time.perf_counter()
     source = None
@@ -71,13 +76,16 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
         spacing = validate_spacing(1.0 if spacing is None else spacing, array.ndim)
     unit = normalise_unit(unit)
     timings["read"] = time.perf_counter() - t0
+    bar.update(note="read")
     t0 = time.perf_counter()
     mask = to_mask(array, spacing, threshold=threshold, dark=dark,
                    min_object_size=min_object_size, max_hole_size=max_hole_size)
     timings["segment"] = time.perf_counter() - t0
+    bar.update(note="segmented")
     graph = skeleton_graph(mask, spacing, prune=prune, unit=unit, prune_factor=prune_factor,
                            min_branch_length=min_branch_length, merge_junctions=merge_junctions,
                            extend_tips=extend_tips, smoothing=smoothing, timings=timings)
+    bar.update(note="graph built")
     t0 = time.perf_counter()
     summary = summarize(graph)
     summary.update(
@@ -87,9 +95,11 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
         caution=CAUTION,
     )
     timings["measure"] = time.perf_counter() - t0
+    bar.update(note="measured")
     result = AnalysisResult(graph=graph, summary=summary, mask=mask, timings=timings)
     if out is not None:
         write_results(result, out)
+        bar.update(note="written")
     return result
 
 

@@ -19,12 +19,14 @@ def test_tiff_roundtrip_keeps_voxel_size(tmp_path):
     assert unit == "um"
 
 
-def test_imagej_description_and_resolution_tags(tmp_path):
-    # The common ImageJ-style description (unit, spacing) written by tifffile.
+def test_key_value_description_and_resolution_tags(tmp_path):
+    # The common key=value page description (unit, slice spacing) with
+    # resolution tags in pixels per unit (common practice in microscopy files).
     data = np.zeros((4, 10, 12), np.uint8)
-    tifffile.imwrite(tmp_path / "ij.tif", data, imagej=True, resolution=(1 / 0.25, 1 / 0.2),
-                     metadata={"spacing": 3.0, "unit": "micron"})
-    _, spacing, unit = read_image(tmp_path / "ij.tif")
+    tifffile.imwrite(tmp_path / "kv.tif", data, resolution=(1 / 0.25, 1 / 0.2), metadata=None,
+                     photometric="minisblack",
+                     description="images=4\nslices=4\nunit=micron\nspacing=3.0\n")
+    _, spacing, unit = read_image(tmp_path / "kv.tif")
     assert spacing == pytest.approx((3.0, 0.2, 0.25)) and unit == "um"
 
 
