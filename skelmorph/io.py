@@ -289,7 +289,6 @@ def _read_tiff(path):
     except Exception as exc:  # noqa: BLE001 - tifffile raises many kinds
         raise ImageReadError(f"cannot read TIFF {path}: {exc.__class__.__name__}: {exc}. "
                              f"The file may be truncated or not a TIFF.") from None
-    del dtype
     # (z, y, x) with z None when only the plane is calibrated; read_image keeps
     # the last ndim entries, so a 2D image uses (y, x) only.
     spacing = (z,) + yx if yx is not None else None
