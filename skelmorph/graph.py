@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import json
 from dataclasses import dataclass, field
+from functools import cached_property
 from pathlib import Path
 
 import numpy as np
@@ -104,17 +105,20 @@ class SkeletonGraph:
         a = sparse.coo_matrix((data, (u, v)), shape=(n, n))
         return (a + a.T).tocsr()
 
+    @cached_property
+    def _components(self):
+        if self.n_nodes == 0:
+            return 0, np.zeros(0, int)
+        n, labels = csgraph.connected_components(self.adjacency(), directed=False)
+        return int(n), labels
+
     def component_labels(self):
         """Connected component of every node, (N,) int array."""
-        if self.n_nodes == 0:
-            return np.zeros(0, int)
-        return csgraph.connected_components(self.adjacency(), directed=False)[1]
+        return self._components[1].copy()
 
     @property
     def n_components(self):
-        if self.n_nodes == 0:
-            return 0
-        return int(csgraph.connected_components(self.adjacency(), directed=False)[0])
+        return self._components[0]
 
     @property
     def cycle_rank(self):

@@ -13,7 +13,8 @@ from scipy import ndimage as ndi
 from .errors import InputError
 from .io import check_image_array, validate_spacing
 
-__all__ = ["is_binary", "to_mask", "check_mask", "remove_specks", "fill_holes"]
+__all__ = ["is_binary", "as_bool_mask", "to_mask", "check_mask", "remove_specks", "fill_holes",
+           "count_cavities"]
 
 # Default cleaning for grey input, in voxels: a speck or hole of at most 3**ndim
 # voxels (one 3x3(x3) block) is noise at any sensible resolution.
@@ -29,6 +30,18 @@ def is_binary(array):
     if lo == hi:
         return True
     return bool(np.all((array == lo) | (array == hi)))
+
+
+def as_bool_mask(binary):
+    """Boolean mask of a binary array: the larger of its two values is the
+    structure; a constant array is all structure unless it is zero."""
+    binary = np.asarray(binary)
+    if binary.dtype == bool:
+        return binary
+    lo, hi = binary.min(), binary.max()
+    if lo == hi:
+        return np.full(binary.shape, bool(hi != 0))
+    return binary == hi
 
 
 def check_mask(mask):
@@ -64,26 +77,45 @@ def remove_specks(mask, max_voxels, connectivity=None):
     return mask & ~small[labels]
 
 
+def _enclosed_background(mask):
+    """Face-connected background components and which of them are enclosed.
+
+    Background uses face (4/6) connectivity, the complement of the 8/26
+    connectivity of the foreground; a component touching the array edge is
+    not enclosed.
+
+    Returns
+    -------
+    labels : int array, shape of ``mask`` (0 = foreground)
+    enclosed : bool array of length n_components + 1 (entry 0 is False)
+    """
+    labels, n = ndi.label(~mask)
+    enclosed = np.ones(n + 1, bool)
+    enclosed[0] = False
+    for axis in range(mask.ndim):  # one slab per array face
+        for index in (0, -1):
+            enclosed[np.unique(np.take(labels, index, axis=axis))] = False
+    return labels, enclosed
+
+
+def count_cavities(mask):
+    """Number of enclosed background components (cavities in 3D, holes in 2D)."""
+    return int(np.count_nonzero(_enclosed_background(mask)[1]))
+
+
 def fill_holes(mask, max_voxels):
     """Fill enclosed background components of at most ``max_voxels`` voxels.
 
-    Background uses face (4/6) connectivity, the complement of the 8/26
-    connectivity of the foreground.  Background touching the array edge is
-    never a hole.  ``max_voxels=np.inf`` fills every enclosed cavity.
+    ``max_voxels=np.inf`` fills every enclosed cavity.  See
+    :func:`count_cavities` for the connectivity used.
     """
     if max_voxels < 1:
         return mask
-    labels, n = ndi.label(~mask)
-    if n == 0:
+    labels, enclosed = _enclosed_background(mask)
+    if len(enclosed) == 1:
         return mask
-    sizes = np.bincount(labels.ravel()).astype(float)
-    border = np.zeros(n + 1, bool)
-    for axis in range(mask.ndim):  # one slab per array face
-        for index in (0, -1):
-            border[np.unique(np.take(labels, index, axis=axis))] = True
-    fill = (sizes <= max_voxels) & ~border
-    fill[0] = False
-    return mask | fill[labels]
+    sizes = np.bincount(labels.ravel(), minlength=len(enclosed)).astype(float)
+    return mask | (enclosed & (sizes <= max_voxels))[labels]
 
 
 def to_mask(image, spacing=None, *, threshold=None, dark=False,
@@ -124,14 +156,8 @@ def to_mask(image, spacing=None, *, threshold=None, dark=False,
     spacing = validate_spacing(1.0 if spacing is None else spacing, image.ndim)
     binary = is_binary(image)
     if binary:
-        if image.dtype == bool:
-            mask = image.copy() if not dark else ~image
-        else:
-            mask = image == image.max()
-            if dark:
-                mask = ~mask
-            if image.min() == image.max():
-                mask = np.full(image.shape, bool(image.max() != 0) != dark)
+        mask = as_bool_mask(image)
+        mask = ~mask if dark else mask.copy()
     else:
         if threshold is None:
             from skimage.filters import threshold_otsu

@@ -52,3 +52,14 @@ def test_smoothing_keeps_lines_and_ends(seed):
     out = smooth_polylines(line, offsets, sigma=2.0)
     # Point reflection about the ends maps a straight line to itself.
     np.testing.assert_allclose(out, line, atol=1e-9)
+
+
+@given(st.integers(0, 2**16), st.sampled_from([(9, 11), (6, 7, 8)]), st.floats(0.1, 0.9))
+def test_sparse_euler_characteristic_matches_scikit_image(seed, shape, density):
+    # scikit-image's euler_number (general-purpose reference), full connectivity.
+    from skimage.measure import euler_number
+
+    from skelmorph.build import euler_characteristic
+
+    mask = np.random.default_rng(seed).random(shape) < density
+    assert euler_characteristic(np.argwhere(mask), shape) == euler_number(mask, connectivity=len(shape))
