@@ -70,6 +70,10 @@ def main(argv=None):
     args = ap.parse_args(argv)
     sizes = args.sizes + ([512] if args.large else [])
     print(f"skelmorph {sm.__version__}, numpy {np.__version__}, python {sys.version.split()[0]}")
+    # Steady state: pay one-off imports (networkx, scikit-image parts) before timing.
+    t0 = time.perf_counter()
+    sm.skeleton_graph(foam(size=24.0, cell=8.0, rod_radius=1.5).mask)
+    print(f"warm-up (imports, first calls): {time.perf_counter() - t0:.2f} s")
     with tempfile.TemporaryDirectory() as tmp:
         rows = [bench_pipeline(s, tmp) for s in sizes]
     if len(rows) > 1:

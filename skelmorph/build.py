@@ -158,49 +158,60 @@ def small_cycle_voxels(coords, links):
     return flagged
 
 
-def euler_characteristic(coords, shape):
+def euler_characteristic(coords, shape, labels=None):
     """Euler characteristic of a sparse voxel set, 26- (3D) or 8- (2D) connected.
 
     With full connectivity the set is the union of closed unit cubes, a
     cubical complex, so chi = sum over k of (-1)^k x (number of k-cells),
     a k-cell being a lattice point plus k axis directions.  Each voxel
-    contributes the 3**d cells of its closed cube; distinct cells are counted
-    by marking them in a boolean lattice (one pass per direction set), so
-    the cost is proportional to the number of voxels plus the lattice size,
-    with no sort.  Matches ``skimage.measure.euler_number(mask,
-    connectivity=ndim)`` (tested).
+    contributes the 3**d cells of its closed cube.  Matches
+    ``skimage.measure.euler_number(mask, connectivity=ndim)`` (tested).
 
     Parameters
     ----------
     coords : (n, d) int array of voxel indices
     shape : tuple, the array shape
+    labels : (n,) int array, optional
+        Labels of non-adjacent voxel groups (e.g. junction clusters): then the
+        Euler characteristic of every group is returned, as an array indexed
+        by label.  Distinct cells are counted with ``np.unique`` here, and by
+        marking a boolean lattice (no sort) for the whole set.
 
     Returns
     -------
-    int
+    int, or int array when ``labels`` is given
     """
     coords = np.asarray(coords, np.int64)
     if len(coords) == 0:
-        return 0
+        return 0 if labels is None else np.zeros(0, np.int64)
     ndim = coords.shape[1]
     lattice = np.asarray(shape, np.int64) + 1  # cube corners run 0..shape
     strides = np.ones(ndim, np.int64)
     for a in range(ndim - 2, -1, -1):
         strides[a] = strides[a + 1] * lattice[a + 1]
     base = coords @ strides
-    marks = np.zeros(int(np.prod(lattice)), bool)
+    if labels is None:
+        marks = np.zeros(int(np.prod(lattice)), bool)
+    else:
+        chi_of = np.zeros(int(labels.max()) + 1, np.int64)
     chi = 0
     for k in range(ndim + 1):
         for along in itertools.combinations(range(ndim), k):
             across = [a for a in range(ndim) if a not in along]
             # Cells spanning `along` at the cube's corners offset across the rest.
-            for corner in itertools.product((0, 1), repeat=len(across)):
-                shift = int(sum(c * strides[a] for c, a in zip(corner, across)))
-                marks[base + shift] = True
-            count = int(np.count_nonzero(marks))
-            marks[:] = False
-            chi += (-1) ** k * count
-    return chi
+            shifts = [int(sum(c * strides[a] for c, a in zip(corner, across)))
+                      for corner in itertools.product((0, 1), repeat=len(across))]
+            if labels is None:
+                for shift in shifts:
+                    marks[base + shift] = True
+                chi += (-1) ** k * int(np.count_nonzero(marks))
+                marks[:] = False
+            else:
+                cells = (base[:, None] + np.array(shifts)[None]).ravel()
+                _, first = np.unique(cells, return_index=True)
+                owner = np.repeat(labels, len(shifts))[first]
+                chi_of += (-1) ** k * np.bincount(owner, minlength=len(chi_of))
+    return chi if labels is None else chi_of
 
 
 def _boundary_background(mask):
@@ -422,6 +433,8 @@ def _raw_graph(skel, mask, spacing, radius_method, timings):
         np.maximum.at(node_r, node_id_of, vox_r[node_vox])
         protected = np.zeros(n_nodes, bool)
         protected[node_of_voxel[node_vox[deg[node_vox] == 0]]] = True
+        loops_u, loops_pts, loops_rad = _cluster_tunnels(
+            coords, junction, node_of_voxel, links, pos_vox, vox_r, node_pos, node_r, skel.shape)
 
         # Path voxels: order every branch with one depth-first traversal.
         slab = np.flatnonzero(~is_node)
@@ -478,8 +491,51 @@ def _raw_graph(skel, mask, spacing, radius_method, timings):
                 v_list.append(q)
                 pts_list.append(node_pos[[p, q]])
                 rad_list.append(node_r[[p, q]])
-    return _Work(node_pos, node_r, protected, u_list, v_list, list(pts_list), list(rad_list),
+        u_list, v_list = list(u_list) + loops_u, list(v_list) + loops_u
+        pts_list, rad_list = list(pts_list) + loops_pts, list(rad_list) + loops_rad
+    return _Work(node_pos, node_r, protected, u_list, v_list, pts_list, rad_list,
                  skel.shape, spacing)
+
+
+def _cluster_tunnels(coords, junction, node_of_voxel, links, pos_vox, vox_r, node_pos, node_r,
+                     shape):
+    """Loops that lie wholly inside a junction cluster, as self-loops of its node.
+
+    A cluster becomes one node, which would silently drop any tunnel the
+    cluster's voxels enclose (thick junctions can thin to a tiny ring whose
+    voxels all have branches).  A connected cluster without cavities has
+    1 - chi tunnels; each is kept as a self-loop traced through the cluster
+    along one of its longest cycles (the short ones are the filled 2x2x2
+    cycles that enclose nothing).
+    """
+    jvox = np.flatnonzero(junction)
+    empty = ([], [], [])
+    if len(jvox) < 4:
+        return empty
+    node = node_of_voxel[jvox]
+    sizes = np.bincount(node)
+    big = sizes[node] >= 4  # a tunnel needs at least four voxels
+    if not big.any():
+        return empty
+    chi = euler_characteristic(coords[jvox[big]], shape, labels=node[big])
+    tunnels = np.flatnonzero((1 - chi) * (sizes[: len(chi)] >= 4) > 0)
+    if len(tunnels) == 0:
+        return empty
+    import networkx as nx
+
+    same = junction[links[:, 0]] & junction[links[:, 1]]
+    jl = links[same]
+    jl_node = node_of_voxel[jl[:, 0]]
+    loops_u, loops_pts, loops_rad = [], [], []
+    for nd in tunnels:  # rare: clusters that enclose a tunnel
+        g = nx.Graph()
+        g.add_edges_from(map(tuple, jl[jl_node == nd].tolist()))
+        cycles = sorted(nx.cycle_basis(g), key=len, reverse=True)
+        for cycle in cycles[: int(1 - chi[nd])]:
+            loops_u.append(int(nd))
+            loops_pts.append(np.vstack([node_pos[nd], pos_vox[cycle], node_pos[nd]]))
+            loops_rad.append(np.concatenate([[node_r[nd]], vox_r[cycle], [node_r[nd]]]))
+    return loops_u, loops_pts, loops_rad
 
 
 def _components(n, links):
