@@ -116,45 +116,51 @@ def voxel_links(coords, shape):
     return np.concatenate(pairs) if pairs else np.zeros((0, 2), np.int64)
 
 
-def small_cycle_voxels(coords, links):
+def small_cycle_voxels(coords, links, shape):
     """Voxels of 2x2(x2) blocks whose links close a cycle.
 
     All voxels of a 2x2x2 block are mutually 26-adjacent, so a cycle inside
     one block encloses no background: it is not a loop of the structure.
     Such voxels are made part of a junction node, where the cycle collapses.
-    A block holds a cycle when its links are at least as many as its voxels.
+    A block holds a cycle when its links are at least as many as its voxels
+    (at least three).  Voxel counts per block come from a dense 2x2(x2) sum;
+    links are then counted only in the few blocks with three or more voxels.
     """
     n, ndim = coords.shape
     if n == 0 or len(links) == 0:
         return np.zeros(n, bool)
     corners = np.array(list(itertools.product((0, 1), repeat=ndim)))
-    span = coords.max(axis=0) + 2
-    mult = np.ones(ndim, np.int64)
-    for a in range(ndim - 2, -1, -1):
-        mult[a] = mult[a + 1] * span[a + 1]
-    base = coords.astype(np.int64) + 1  # block origins may sit at -1
-    # Blocks containing each voxel: origins voxel - corner.
-    vox_blocks = ((base[:, None, :] - corners[None]) @ mult).ravel()
-    vox_owner = np.repeat(np.arange(n), len(corners))
-    # Blocks containing each link: origin <= both ends <= origin + 1.  With
-    # origin = hi - corner the upper bound holds, so origin <= lo decides.
+    base = coords.astype(np.int64) + 1  # padded coordinates; block origins run 0..shape
+    occ = np.zeros(np.asarray(shape) + 2, np.uint8)
+    occ[tuple(base.T)] = 1
+    nblock = np.asarray(shape) + 1
+    count = np.zeros(nblock, np.uint8)
+    for c in corners:
+        count += occ[tuple(slice(ci, ci + m) for ci, m in zip(c, nblock))]
+    busy = count >= 3
+    if not busy.any():
+        return np.zeros(n, bool)
+    # Links per busy block: origin = hi - corner must also be <= lo on every axis.
     lo = np.minimum(base[links[:, 0]], base[links[:, 1]])
     hi = np.maximum(base[links[:, 0]], base[links[:, 1]])
-    link_blocks = []
+    origins = []
     for c in corners:
         origin = hi - c
         ok = np.all(origin <= lo, axis=1)
-        link_blocks.append(origin[ok] @ mult)
-    link_blocks = np.concatenate(link_blocks)
-    blocks, vcount = np.unique(vox_blocks, return_counts=True)
-    lcount = np.zeros(len(blocks), np.int64)
-    pos = np.searchsorted(blocks, link_blocks)
-    np.add.at(lcount, pos, 1)
-    cyclic = blocks[(lcount >= vcount) & (vcount >= 3)]
+        origin = origin[ok]
+        origins.append(origin[busy[tuple(origin.T)]])
+    origins = np.concatenate(origins)
+    blocks, lcount = np.unique(np.ravel_multi_index(tuple(origins.T), nblock), return_counts=True)
+    vcount = count.ravel()[blocks]
+    cyclic = np.column_stack(np.unravel_index(blocks[lcount >= vcount], nblock))
     if len(cyclic) == 0:
         return np.zeros(n, bool)
+    # Voxels of the cyclic blocks, back to indices into coords (sorted C order).
+    members = (cyclic[:, None, :] + corners[None]).reshape(-1, ndim)
+    members = members[occ[tuple(members.T)] == 1] - 1
+    lin = np.ravel_multi_index(tuple(coords.T), shape)
     flagged = np.zeros(n, bool)
-    flagged[vox_owner[np.isin(vox_blocks, cyclic)]] = True
+    flagged[np.searchsorted(lin, np.ravel_multi_index(tuple(members.T), shape))] = True
     return flagged
 
 
@@ -395,7 +401,7 @@ def _raw_graph(skel, mask, spacing, radius_method, timings):
     with _timed(timings, "radii"):
         vox_r = centreline_radius(mask, coords, spacing, method=radius_method)
     with _timed(timings, "graph"):
-        clique = small_cycle_voxels(coords, links)
+        clique = small_cycle_voxels(coords, links, skel.shape)
         is_node = (deg != 2) | clique
         # Rings without any junction: promote one voxel per ring to an anchor node.
         path_links = links[~is_node[links[:, 0]] & ~is_node[links[:, 1]]]
