@@ -1,10 +1,13 @@
-"""Benchmarks: time every stage of the pipeline on foam phantoms.
+"""Benchmarks: every capability, with ratios against references measured in the same run.
 
-Prints seconds per stage and ratios against references measured in the same
-run: the thinning itself (scikit-image), scipy's full distance transform and
-a KD-tree radius search.  Usage:
+- pipeline: each stage on foam phantoms against the thinning itself
+  (scikit-image), scipy's full distance transform and a KD-tree radius search;
+- trees: elder-rule barcodes on trees of 10^4-10^6 points against the same
+  barcode from gudhi's persistence, and spanning trees of the foam graph.
 
-    python scripts/bench.py [--large] [--sizes 128 256]
+Usage:
+
+    python scripts/bench.py [--large] [--sizes 128 256] [--only pipeline trees]
 """
 
 from __future__ import annotations
@@ -60,13 +63,67 @@ def bench_pipeline(size, tmp):
           f"(x{t_edt / t['radii']:.1f})")
     print(f"  loop check: sparse Euler characteristic {t['topology']:.3f} s vs scikit-image "
           f"euler_number {t_euler_ref:.3f} s (x{t_euler_ref / t['topology']:.1f})")
-    return {"size": size, "voxels": n_vox, "ratio": ours / t["skeletonize"]}
+    return {"size": size, "voxels": n_vox, "ratio": ours / t["skeletonize"], "graph": graph}
+
+
+def random_skeleton_tree(n, seed=0):
+    """A tree shaped like a skeleton: long chains (98 % of points continue the
+    previous one) with branches from random earlier points, random-walk coordinates."""
+    from skelmorph._kernels import accumulate_down
+    rng = np.random.default_rng(seed)
+    idx = np.arange(n)
+    parent = np.where(rng.random(n) < 0.98, idx - 1, (rng.random(n) * idx).astype(np.int64))
+    parent[0] = -1
+    order = np.arange(n)
+    coords = np.column_stack([accumulate_down(order, parent, rng.normal(size=n)) for _ in range(3)])
+    return parent, coords
+
+
+def bench_trees(graph):
+    from skelmorph import Tree, barcode, spanning_trees
+    import gudhi
+
+    parent, coords = random_skeleton_tree(1000)
+    t0 = time.perf_counter()
+    barcode(Tree.from_parents(parent, coords), "path")
+    print(f"\nbarcodes: JIT warm-up (first call, compiled kernels cached on disk) "
+          f"{time.perf_counter() - t0:.2f} s")
+    for n in (10**4, 10**5, 10**6):
+        parent, coords = random_skeleton_tree(n, seed=1)
+        tree, t_tree = clock(Tree.from_parents, parent, coords)
+        bars, t_bar = clock(barcode, tree, "path")
+        ours = t_tree + t_bar
+        line = (f"  {n:>8} points: tree {t_tree:.3f} s + barcode {t_bar:.3f} s = "
+                f"{n / ours / 1e6:.2f} M points/s, {len(bars)} bars")
+        if n <= 10**5:
+            def gudhi_bars():
+                st = gudhi.SimplexTree()
+                f = tree.path_distance
+                st.insert_batch(np.arange(n)[None, :], -f)
+                child = np.flatnonzero(tree.parent >= 0)
+                e = np.vstack([child, tree.parent[child]])
+                st.insert_batch(e, -np.minimum(f[child], f[tree.parent[child]]))
+                return st.persistence(min_persistence=-1)
+            _, t_ref = clock(gudhi_bars)
+            line += f" | gudhi persistence {t_ref:.3f} s (x{t_ref / ours:.1f} ours)"
+        print(line)
+    if graph is not None:
+        print(f"spanning trees of the foam graph ({graph.n_nodes} nodes, {graph.n_edges} "
+              f"branches, {len(graph.points)} points):")
+        for method in ("shortest", "minimum", "widest", "random"):
+            trees, t = clock(spanning_trees, graph, None, method, 4 if method == "random" else 1)
+            per = t / len(trees)
+            bars, t_b = clock(barcode, trees[0], "radial")
+            print(f"  {method:8s} {per:.3f} s per tree ({trees[0].n_points / per / 1e6:.2f} M points/s)"
+                  f" + barcode {t_b:.4f} s")
 
 
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--large", action="store_true", help="also run 512^3")
     ap.add_argument("--sizes", type=int, nargs="+", default=[128, 256])
+    ap.add_argument("--only", nargs="+", default=["pipeline", "trees"],
+                    choices=["pipeline", "trees"])
     args = ap.parse_args(argv)
     sizes = args.sizes + ([512] if args.large else [])
     print(f"skelmorph {sm.__version__}, numpy {np.__version__}, python {sys.version.split()[0]}")
@@ -74,11 +131,20 @@ def main(argv=None):
     t0 = time.perf_counter()
     sm.skeleton_graph(foam(size=24.0, cell=8.0, rod_radius=1.5).mask)
     print(f"warm-up (imports, first calls): {time.perf_counter() - t0:.2f} s")
-    with tempfile.TemporaryDirectory() as tmp:
-        rows = [bench_pipeline(s, tmp) for s in sizes]
-    if len(rows) > 1:
-        a, b = rows[0], rows[-1]
-        print(f"\nscaling {a['size']}^3 -> {b['size']}^3: centreline voxels x{b['voxels'] / a['voxels']:.1f}")
+    graph = None
+    if "pipeline" in args.only:
+        with tempfile.TemporaryDirectory() as tmp:
+            rows = [bench_pipeline(s, tmp) for s in sizes]
+        graph = rows[-1]["graph"]
+        if len(rows) > 1:
+            a, b = rows[0], rows[-1]
+            print(f"\nscaling {a['size']}^3 -> {b['size']}^3: centreline voxels "
+                  f"x{b['voxels'] / a['voxels']:.1f}")
+    if "trees" in args.only:
+        if graph is None:
+            ph = foam(size=float(sizes[-1]), cell=16.0, rod_radius=2.5, seed=0)
+            graph = sm.skeleton_graph(ph.mask, ph.spacing)
+        bench_trees(graph)
 
 
 if __name__ == "__main__":

@@ -52,6 +52,21 @@ def _parser():
                    help="lengthen tip branches by their tip radius")
     k.add_argument("--smoothing", type=float, default=2.0,
                    help="centreline smoothing before measuring length, voxels (0 = none)")
+    from .descriptors.barcode import FILTRATIONS
+    from .rooting import ROOT_METHODS, TREE_METHODS
+    t = a.add_argument_group("tree descriptors (largest component)")
+    t.add_argument("--root", choices=[m for m in ROOT_METHODS if m != "point"] + ["point"],
+                   default="thickest", help="root rule (default thickest)")
+    t.add_argument("--root-point", type=float, nargs="+", metavar="C",
+                   help="with --root point: position in (z) y x order, in the image unit")
+    t.add_argument("--root-face", default="z-", help="with --root face: z-, z+, y-, y+, x- or x+")
+    t.add_argument("--tree", choices=list(TREE_METHODS) + ["none"], default="shortest",
+                   help="spanning tree rule (default shortest; none skips tree descriptors)")
+    t.add_argument("--trees", type=int, default=1, metavar="N",
+                   help="number of random spanning trees; scalars become mean and spread")
+    t.add_argument("--filtration", choices=list(FILTRATIONS), default="radial",
+                   help="barcode filtration (default radial)")
+    t.add_argument("--seed", type=int, default=0, help="seed of random trees")
 
     f = sub.add_parser("phantom", help="write a synthetic structure with its ground truth",
                        description="Write a phantom as TIFF (with voxel size) and its "
@@ -85,7 +100,11 @@ def _cmd_analyze(args):
                      min_object_size=args.min_object_size, max_hole_size=args.max_hole_size,
                      prune=not args.no_prune, prune_factor=args.prune_factor,
                      min_branch_length=args.min_branch_length, extend_tips=args.extend_tips,
-                     smoothing=args.smoothing, out=out, progress=not args.quiet)
+                     smoothing=args.smoothing, root=args.root,
+                     tree=None if args.tree == "none" else args.tree, n_trees=args.trees,
+                     filtration=args.filtration, seed=args.seed,
+                     root_point=args.root_point, root_face=args.root_face,
+                     out=out, progress=not args.quiet)
     s = result.summary
     u = s["unit"]
     print(f"{args.image}: {len(s['image_shape'])}D image {tuple(s['image_shape'])}, "
@@ -95,7 +114,16 @@ def _cmd_analyze(args):
     print(f"  components       {s['n_components']}")
     print(f"  loops            {s['cycle_rank']}")
     print(f"  mean radius      {s['mean_radius']:.4g} {u}")
-    print(f"results in {out}/ (graph.graphml, graph.vtp, nodes.csv, branches.csv, summary.json)")
+    if "barcode_n_bars" in s:
+        print(f"  barcode          {s['barcode_n_bars']:.4g} bars, total persistence "
+              f"{s['barcode_total_persistence']:.4g} {u} ({s['tree_method']} tree, "
+              f"root {s['root_method']}, {s['filtration']} filtration)")
+        print(f"  Strahler order   {s['max_strahler_order']:.3g} (bifurcation ratio "
+              f"{s['bifurcation_ratio']:.3g})")
+    files = "graph.graphml, graph.vtp, nodes.csv, branches.csv, summary.json"
+    if "barcode_n_bars" in s:
+        files += ", barcode.csv, barcode.png"
+    print(f"results in {out}/ ({files})")
     print(CAUTION_TEXT)
 
 

@@ -246,6 +246,39 @@ class SkeletonGraph:
         return d
 
     @classmethod
+    def from_edges(cls, nodes, edges, node_radius=None, unit="um", polylines=None):
+        """A graph with straight branches (or given polylines) from node positions and edges.
+
+        Useful for abstract networks and tests.  ``polylines``, when given,
+        is a list of (n_e, d) arrays that start and end at their edge's nodes.
+        """
+        from .polyline import polyline_lengths
+        nodes = np.asarray(nodes, float)
+        if nodes.ndim != 2 or not np.all(np.isfinite(nodes)):
+            raise SkelmorphError("nodes must be an (N, d) array of finite positions")
+        edges = np.asarray(edges, np.int64).reshape(-1, 2)
+        n = len(nodes)
+        if len(edges) and (edges.min() < 0 or edges.max() >= n):
+            raise SkelmorphError("edges refer to nodes that do not exist")
+        if polylines is None:
+            polylines = [nodes[[a, b]] for a, b in edges]
+        if len(polylines) != len(edges):
+            raise SkelmorphError("need one polyline per edge")
+        counts = np.array([len(p) for p in polylines], np.int64)
+        offsets = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
+        points = np.concatenate(polylines) if len(polylines) else np.zeros((0, nodes.shape[1]))
+        radius = np.ones(n) if node_radius is None else np.asarray(node_radius, float)
+        degree = np.bincount(edges.ravel(), minlength=n).astype(np.int64)
+        # Point radii interpolate linearly between the end nodes.
+        t = np.concatenate([np.linspace(0, 1, c) for c in counts]) if len(counts) else np.zeros(0)
+        ra = np.repeat(radius[edges[:, 0]], counts)
+        rb = np.repeat(radius[edges[:, 1]], counts)
+        return cls(nodes=nodes, node_radius=radius, node_degree=degree, edges=edges,
+                   points=points.astype(float), point_radius=ra + t * (rb - ra), offsets=offsets,
+                   edge_length=polyline_lengths(points, offsets), spacing=(1.0,) * nodes.shape[1],
+                   unit=unit, shape=(), meta={"source": "from_edges"})
+
+    @classmethod
     def read(cls, path):
         """Read a graph written by :meth:`write` as ``.json`` or ``.npz``."""
         path = Path(path)

@@ -32,12 +32,15 @@ class AnalysisResult:
     summary: dict
     mask: np.ndarray = field(repr=False)
     timings: dict = field(default_factory=dict)
+    trees: list = field(default_factory=list, repr=False)
+    barcodes: list = field(default_factory=list, repr=False)
 
 
 def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dark=False,
             min_object_size=None, max_hole_size=None, prune=True, prune_factor=1.5,
             min_branch_length=0.0, extend_tips=False, smoothing=2.0, merge_junctions=True,
-            out=None, progress=False):
+            root="thickest", tree="shortest", n_trees=1, filtration="radial", seed=0,
+            root_point=None, root_face=None, out=None, figures=True, progress=False):
     """Analyse one image end to end.
 
     Parameters
@@ -50,9 +53,15 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
         Segmentation of grey images, see :func:`skelmorph.to_mask`.
     prune, prune_factor, min_branch_length, extend_tips, smoothing, merge_junctions
         Graph options, see :func:`skelmorph.skeleton_graph`.
+    root, root_point, root_face, tree, n_trees, filtration, seed
+        Tree descriptors of the largest component: root rule
+        (:func:`skelmorph.choose_root`), spanning rule and number of trees
+        (:func:`skelmorph.spanning_trees`), barcode filtration
+        (:func:`skelmorph.barcode`).  ``tree=None`` skips them.
     out : str or Path, optional
         Folder to write ``graph.graphml``, ``graph.vtp``, ``nodes.csv``,
-        ``branches.csv`` and ``summary.json`` into.
+        ``branches.csv``, ``summary.json`` and, with tree descriptors,
+        ``barcode.csv`` (and ``barcode.png`` when ``figures``) into.
     progress : bool
         Show a progress bar over the stages on stderr.
 
@@ -62,7 +71,7 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
     """
     from .progress import Progress
 
-    bar = Progress(4 + (out is not None), "analyze", enabled=progress)
+    bar = Progress(5 + (out is not None), "analyze", enabled=progress)
     timings = {}
     t0 = time.perf_counter()
     source = None
@@ -97,13 +106,22 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
     timings["measure"] = time.perf_counter() - t0
     bar.update(note="measured")
     result = AnalysisResult(graph=graph, summary=summary, mask=mask, timings=timings)
+    if tree is not None and graph.n_nodes:
+        from .descriptors.barcode import graph_barcodes
+        t0 = time.perf_counter()
+        result.trees, result.barcodes, tsum = graph_barcodes(
+            graph, root=root, tree=tree, n_trees=n_trees, filtration=filtration, seed=seed,
+            point=root_point, face=root_face)
+        summary.update(tsum)
+        timings["trees"] = time.perf_counter() - t0
+    bar.update(note="trees")
     if out is not None:
-        write_results(result, out)
+        write_results(result, out, figures=figures)
         bar.update(note="written")
     return result
 
 
-def write_results(result, out):
+def write_results(result, out, figures=True):
     """Write the standard result files of one analysis into folder ``out``."""
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
@@ -113,4 +131,24 @@ def write_results(result, out):
     write_csv(out / "nodes.csv", node_table(g))
     write_csv(out / "branches.csv", branch_table(g))
     write_json(out / "summary.json", result.summary)
-    return [out / f for f in OUTPUT_FILES]
+    files = [out / f for f in OUTPUT_FILES]
+    if result.barcodes:
+        tree_id = np.concatenate([np.full(len(b), i) for i, b in enumerate(result.barcodes)])
+        bars = np.concatenate(result.barcodes).reshape(-1, 2)
+        write_csv(out / "barcode.csv", {"tree": tree_id, "birth": bars[:, 0], "death": bars[:, 1]})
+        files.append(out / "barcode.csv")
+        if figures:
+            files.append(_barcode_figure(result, out / "barcode.png"))
+    return files
+
+
+def _barcode_figure(result, path):
+    from .report.figures import new_axes, plot_barcode, plot_diagram, save
+    s = result.summary
+    fig, ax = new_axes(2)
+    label = f"{s['filtration']} filtration, {s['tree_method']} tree"
+    plot_barcode(result.barcodes[0], ax[0, 0], unit=s["unit"], label=label)
+    for i, b in enumerate(result.barcodes[:20]):
+        plot_diagram(b, ax[0, 1], unit=s["unit"], label="persistence diagram")
+    save(fig, path)
+    return path

@@ -125,3 +125,27 @@ def test_demo(tmp_path, capsys):
     comp = json.loads((tmp_path / "d" / "comparison.json").read_text())
     # Smaller pores give more struts: the fine group has more loops per volume.
     assert comp["groups"]["fine"]["cycle_rank"]["mean"] > comp["groups"]["coarse"]["cycle_rank"]["mean"]
+
+
+def test_cli_tree_descriptors(tmp_path, capsys):
+    """--tree random --trees 3: barcode.csv holds 3 trees; scalars get a spread;
+    bar count per tree = tips + 2 x loops of the frame (each cut makes two tips)."""
+    import csv
+    assert main(["phantom", "frame", "--out", str(tmp_path / "f.tif")]) == 0
+    out = tmp_path / "r"
+    assert main(["analyze", str(tmp_path / "f.tif"), "--out", str(out), "--quiet",
+                 "--tree", "random", "--trees", "3", "--root", "center", "--filtration", "path"]) == 0
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["n_trees"] == 3 and summary["tree_method"] == "random"
+    assert summary["barcode_n_bars"] == 2 * summary["cycle_rank"] + summary["n_tips"]
+    assert "barcode_total_persistence_sd" in summary
+    # For the path filtration the bars add up to the total length (design section 4).
+    assert summary["barcode_total_persistence"] == pytest.approx(summary["total_length"])
+    with open(out / "barcode.csv") as fh:
+        rows = list(csv.DictReader(fh))
+    assert sorted({r["tree"] for r in rows}) == ["0", "1", "2"]
+    assert (out / "barcode.png").stat().st_size > 1000
+    assert "barcode" in capsys.readouterr().out
+    assert main(["analyze", str(tmp_path / "f.tif"), "--out", str(tmp_path / "n"), "--quiet",
+                 "--tree", "none"]) == 0
+    assert not (tmp_path / "n" / "barcode.csv").exists()

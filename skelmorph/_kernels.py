@@ -1,0 +1,177 @@
+"""Compiled kernels for work that is sequential by nature.
+
+Tree sweeps (a parent needs all its children first), loop-erased random walks
+and union-find are inherently sequential, so they are written as plain loops
+and compiled with numba.  Everything else in skelmorph stays vectorised numpy.
+This module is imported only by the modules that need it, so ``import
+skelmorph`` does not pay for the compiler.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+__all__ = ["bfs_order", "accumulate_down", "elder_rule", "strahler_orders",
+           "branch_tops", "wilson_tree", "kruskal"]
+
+
+@njit(cache=True)
+def bfs_order(root, child_start, child_index):
+    """Breadth-first order from ``root`` over a children CSR; parents come first."""
+    n = len(child_start) - 1
+    order = np.empty(n, np.int64)
+    order[0] = root
+    head = 0
+    tail = 1
+    while head < tail:
+        v = order[head]
+        head += 1
+        for k in range(child_start[v], child_start[v + 1]):
+            order[tail] = child_index[k]
+            tail += 1
+    return order[:tail]
+
+
+@njit(cache=True)
+def accumulate_down(order, parent, step):
+    """value[v] = value[parent[v]] + step[v] along ``order`` (root value 0)."""
+    out = np.zeros(len(parent))
+    for i in range(1, len(order)):
+        v = order[i]
+        out[v] = out[parent[v]] + step[v]
+    return out
+
+
+@njit(cache=True)
+def elder_rule(order, parent, f, rank):
+    """Elder-rule pairing on a rooted tree.
+
+    Sweeps children before parents.  Every point carries the leaf whose bar
+    it continues; where two carried bars meet at point p, the one with the
+    lower ``rank`` (the younger) ends with (f[leaf], f[p]).  The survivor ends
+    at the root.  ``rank`` orders leaves by value, ties broken by the caller.
+    """
+    n = len(parent)
+    carry = np.full(n, -1, np.int64)
+    births = np.empty(n)
+    deaths = np.empty(n)
+    leaf = np.empty(n, np.int64)
+    nb = 0
+    for i in range(len(order) - 1, 0, -1):
+        v = order[i]
+        if carry[v] < 0:
+            carry[v] = v
+        c = carry[v]
+        p = parent[v]
+        q = carry[p]
+        if q < 0:
+            carry[p] = c
+        else:
+            if rank[c] > rank[q]:
+                loser = q
+                carry[p] = c
+            else:
+                loser = c
+            births[nb] = f[loser]
+            deaths[nb] = f[p]
+            leaf[nb] = loser
+            nb += 1
+    root = order[0]
+    if carry[root] >= 0:
+        births[nb] = f[carry[root]]
+        deaths[nb] = f[root]
+        leaf[nb] = carry[root]
+        nb += 1
+    return births[:nb], deaths[:nb], leaf[:nb]
+
+
+@njit(cache=True)
+def strahler_orders(order, parent):
+    """Strahler order of every point: leaves 1; two equal top child orders add one."""
+    n = len(parent)
+    best1 = np.zeros(n, np.int64)
+    best2 = np.zeros(n, np.int64)
+    out = np.zeros(n, np.int64)
+    for i in range(len(order) - 1, -1, -1):
+        v = order[i]
+        if best1[v] == 0:
+            out[v] = 1
+        elif best2[v] == best1[v]:
+            out[v] = best1[v] + 1
+        else:
+            out[v] = best1[v]
+        if i > 0:
+            p = parent[v]
+            o = out[v]
+            if o > best1[p]:
+                best2[p] = best1[p]
+                best1[p] = o
+            elif o > best2[p]:
+                best2[p] = o
+    return out
+
+
+@njit(cache=True)
+def branch_tops(order, parent, critical):
+    """For every non-root point, the nearest critical strict ancestor."""
+    top = np.full(len(parent), -1, np.int64)
+    for i in range(1, len(order)):
+        v = order[i]
+        p = parent[v]
+        top[v] = p if critical[p] else top[p]
+    return top
+
+
+@njit(cache=True)
+def wilson_tree(n, adj_start, adj_node, adj_edge, root, in_comp, seed):
+    """Uniform spanning tree by loop-erased random walks (Wilson 1996).
+
+    Returns, for every node of the component, the edge to its parent
+    (-1 at the root and outside the component).  Each step picks one incident
+    edge uniformly, so parallel edges count as distinct edges.
+    """
+    np.random.seed(seed)
+    in_tree = np.zeros(n, np.bool_)
+    next_node = np.full(n, -1, np.int64)
+    next_edge = np.full(n, -1, np.int64)
+    in_tree[root] = True
+    for start in range(n):
+        if not in_comp[start] or in_tree[start]:
+            continue
+        u = start
+        while not in_tree[u]:
+            deg = adj_start[u + 1] - adj_start[u]
+            k = adj_start[u] + np.random.randint(0, deg)
+            next_node[u] = adj_node[k]
+            next_edge[u] = adj_edge[k]
+            u = adj_node[k]
+        u = start
+        while not in_tree[u]:
+            in_tree[u] = True
+            u = next_node[u]
+    parent_edge = np.full(n, -1, np.int64)
+    for v in range(n):
+        if in_comp[v] and v != root:
+            parent_edge[v] = next_edge[v]
+    return parent_edge
+
+
+@njit(cache=True)
+def kruskal(n, u, v, sorted_edges):
+    """Kruskal's spanning forest: scan edges in the given order, keep those joining two trees."""
+    root = np.arange(n)
+    keep = np.zeros(len(u), np.bool_)
+    for e in sorted_edges:
+        a = u[e]
+        while root[a] != a:
+            root[a] = root[root[a]]
+            a = root[a]
+        b = v[e]
+        while root[b] != b:
+            root[b] = root[root[b]]
+            b = root[b]
+        if a != b:
+            root[a] = b
+            keep[e] = True
+    return keep

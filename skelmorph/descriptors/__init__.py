@@ -1,0 +1,1 @@
+"""Descriptors of rooted trees and graphs: barcodes, persistence images, distances."""
