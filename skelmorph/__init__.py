@@ -34,6 +34,9 @@ _LAZY = {
     "landscape": "descriptors.distances",
     "landscape_distance": "descriptors.distances",
     "strahler_order": "measure.orders",
+    "radial_profiles": "descriptors.radial",
+    "profile_distance": "descriptors.radial",
+    "profile_summary": "descriptors.radial",
     "bifurcation_ratio": "measure.orders",
     "phantoms": None,
 }

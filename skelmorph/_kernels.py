@@ -12,8 +12,8 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-__all__ = ["bfs_order", "accumulate_down", "elder_rule", "strahler_orders",
-           "branch_tops", "wilson_tree", "kruskal"]
+__all__ = ["bfs_order", "accumulate_down", "accumulate_max_down", "elder_rule", "strahler_orders",
+           "branch_tops", "wilson_tree", "kruskal", "walk_chains"]
 
 
 @njit(cache=True)
@@ -175,3 +175,83 @@ def kruskal(n, u, v, sorted_edges):
             root[a] = b
             keep[e] = True
     return keep
+
+
+@njit(cache=True)
+def accumulate_max_down(order, parent, value):
+    """out[v] = max(out[parent[v]], value[v]) along ``order`` (root keeps its value)."""
+    out = value.copy()
+    for i in range(1, len(order)):
+        v = order[i]
+        p = parent[v]
+        if out[p] > out[v]:
+            out[v] = out[p]
+    return out
+
+
+@njit(cache=True)
+def walk_chains(adj_start, adj_nbr, adj_seg, critical, seg_len, seg_a):
+    """Split a segment graph into chains between critical points.
+
+    Walks from every critical point along each unvisited incident segment
+    through points of degree two until the next critical point.  For each
+    segment and each of its ends k (0 = ``seg_a`` side), ``anchor[s, k]`` is
+    the critical point the chain starts from when walking in through end k,
+    and ``arc[s, k]`` the length walked before reaching the segment.
+    """
+    m = len(seg_len)
+    anchor = np.full((m, 2), -1, np.int64)
+    arc = np.zeros((m, 2))
+    chain = np.full(m, -1, np.int64)
+    c_len = np.zeros(m)
+    c_start = np.full(m, -1, np.int64)
+    c_end = np.full(m, -1, np.int64)
+    buf_seg = np.empty(m, np.int64)
+    buf_side = np.empty(m, np.int64)
+    buf_arc = np.empty(m)
+    nc = 0
+    n = len(adj_start) - 1
+    for p in range(n):
+        if not critical[p]:
+            continue
+        for k in range(adj_start[p], adj_start[p + 1]):
+            s = adj_seg[k]
+            if chain[s] >= 0:
+                continue
+            cnt = 0
+            walked = 0.0
+            x = p
+            cur = s
+            nxt = adj_nbr[k]
+            while True:
+                side = 0 if seg_a[cur] == x else 1
+                chain[cur] = nc
+                buf_seg[cnt] = cur
+                buf_side[cnt] = side
+                buf_arc[cnt] = walked
+                cnt += 1
+                walked += seg_len[cur]
+                x = nxt
+                if critical[x]:
+                    break
+                nxt_seg = -1
+                for kk in range(adj_start[x], adj_start[x + 1]):
+                    if adj_seg[kk] != cur:
+                        nxt_seg = adj_seg[kk]
+                        nxt = adj_nbr[kk]
+                        break
+                if nxt_seg < 0 or chain[nxt_seg] >= 0:
+                    break
+                cur = nxt_seg
+            for i in range(cnt):
+                si = buf_seg[i]
+                sd = buf_side[i]
+                anchor[si, sd] = p
+                arc[si, sd] = buf_arc[i]
+                anchor[si, 1 - sd] = x
+                arc[si, 1 - sd] = walked - buf_arc[i] - seg_len[si]
+            c_len[nc] = walked
+            c_start[nc] = p
+            c_end[nc] = x
+            nc += 1
+    return anchor, arc, chain, c_len[:nc], c_start[:nc], c_end[:nc]

@@ -67,6 +67,8 @@ def _parser():
     t.add_argument("--filtration", choices=list(FILTRATIONS), default="radial",
                    help="barcode filtration (default radial)")
     t.add_argument("--seed", type=int, default=0, help="seed of random trees")
+    t.add_argument("--radii", type=int, default=200, metavar="N",
+                   help="radii of the radial (Sholl-type) profiles around the root (0 = none)")
 
     f = sub.add_parser("phantom", help="write a synthetic structure with its ground truth",
                        description="Write a phantom as TIFF (with voxel size) and its "
@@ -104,7 +106,7 @@ def _cmd_analyze(args):
                      tree=None if args.tree == "none" else args.tree, n_trees=args.trees,
                      filtration=args.filtration, seed=args.seed,
                      root_point=args.root_point, root_face=args.root_face,
-                     out=out, progress=not args.quiet)
+                     n_radii=args.radii, out=out, progress=not args.quiet)
     s = result.summary
     u = s["unit"]
     print(f"{args.image}: {len(s['image_shape'])}D image {tuple(s['image_shape'])}, "
@@ -120,9 +122,14 @@ def _cmd_analyze(args):
               f"root {s['root_method']}, {s['filtration']} filtration)")
         print(f"  Strahler order   {s['max_strahler_order']:.3g} (bifurcation ratio "
               f"{s['bifurcation_ratio']:.3g})")
+    if "profile_max_crossings" in s:
+        print(f"  radial profile   max {s['profile_max_crossings']:.4g} crossings at "
+              f"{s['profile_radius_of_max_crossings']:.4g} {u} from the root")
     files = "graph.graphml, graph.vtp, nodes.csv, branches.csv, summary.json"
     if "barcode_n_bars" in s:
         files += ", barcode.csv, barcode.png"
+    if "profile_max_crossings" in s:
+        files += ", profiles.csv, profiles.png"
     print(f"results in {out}/ ({files})")
     print(CAUTION_TEXT)
 

@@ -34,13 +34,14 @@ class AnalysisResult:
     timings: dict = field(default_factory=dict)
     trees: list = field(default_factory=list, repr=False)
     barcodes: list = field(default_factory=list, repr=False)
+    profiles: object = field(default=None, repr=False)
 
 
 def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dark=False,
             min_object_size=None, max_hole_size=None, prune=True, prune_factor=1.5,
             min_branch_length=0.0, extend_tips=False, smoothing=2.0, merge_junctions=True,
             root="thickest", tree="shortest", n_trees=1, filtration="radial", seed=0,
-            root_point=None, root_face=None, out=None, figures=True, progress=False):
+            root_point=None, root_face=None, n_radii=200, out=None, figures=True, progress=False):
     """Analyse one image end to end.
 
     Parameters
@@ -58,10 +59,14 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
         (:func:`skelmorph.choose_root`), spanning rule and number of trees
         (:func:`skelmorph.spanning_trees`), barcode filtration
         (:func:`skelmorph.barcode`).  ``tree=None`` skips them.
+    n_radii : int
+        Radii of the radial profiles around the same root
+        (:func:`skelmorph.radial_profiles`); 0 skips them.
     out : str or Path, optional
         Folder to write ``graph.graphml``, ``graph.vtp``, ``nodes.csv``,
         ``branches.csv``, ``summary.json`` and, with tree descriptors,
-        ``barcode.csv`` (and ``barcode.png`` when ``figures``) into.
+        ``barcode.csv``, with profiles ``profiles.csv`` (and ``barcode.png``,
+        ``profiles.png`` when ``figures``) into.
     progress : bool
         Show a progress bar over the stages on stderr.
 
@@ -71,7 +76,7 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
     """
     from .progress import Progress
 
-    bar = Progress(5 + (out is not None), "analyze", enabled=progress)
+    bar = Progress(6 + (out is not None), "analyze", enabled=progress)
     timings = {}
     t0 = time.perf_counter()
     source = None
@@ -115,6 +120,18 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
         summary.update(tsum)
         timings["trees"] = time.perf_counter() - t0
     bar.update(note="trees")
+    if n_radii and graph.n_nodes:
+        from .descriptors.radial import profile_summary, radial_profiles
+        from .rooting import choose_root
+        t0 = time.perf_counter()
+        r = summary.get("root_node")
+        if r is None:
+            r = choose_root(graph, root, point=root_point, face=root_face)
+        result.profiles = radial_profiles(graph, root=int(r), n_radii=n_radii)
+        summary.update({f"profile_{k}": v for k, v in profile_summary(result.profiles).items()})
+        summary["profile_root_node"] = int(r)
+        timings["profiles"] = time.perf_counter() - t0
+    bar.update(note="profiles")
     if out is not None:
         write_results(result, out, figures=figures)
         bar.update(note="written")
@@ -139,6 +156,18 @@ def write_results(result, out, figures=True):
         files.append(out / "barcode.csv")
         if figures:
             files.append(_barcode_figure(result, out / "barcode.png"))
+    if result.profiles is not None:
+        write_csv(out / "profiles.csv", {k: result.profiles[k].to_numpy()
+                                         for k in result.profiles.columns})
+        files.append(out / "profiles.csv")
+        if figures:
+            from .report.figures import new_axes, plot_profiles, save
+            fig, axes = new_axes(4, 4, size=(2.6, 2.1))
+            plot_profiles(result.profiles, axes, unit=result.summary["unit"])
+            fig.suptitle("radial profiles around the root (" + CAUTION.split(":")[0].lower() + ")",
+                         fontsize=9)
+            save(fig, out / "profiles.png")
+            files.append(out / "profiles.png")
     return files
 
 

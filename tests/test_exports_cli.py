@@ -149,3 +149,24 @@ def test_cli_tree_descriptors(tmp_path, capsys):
     assert main(["analyze", str(tmp_path / "f.tif"), "--out", str(tmp_path / "n"), "--quiet",
                  "--tree", "none"]) == 0
     assert not (tmp_path / "n" / "barcode.csv").exists()
+
+
+def test_cli_profiles(tmp_path):
+    """analyze writes profiles.csv (one row per radius, every column) and
+    profiles.png; the summary holds the maximum crossings of the profile."""
+    import csv
+
+    from skelmorph.descriptors.radial import PROFILE_COLUMNS
+    assert main(["phantom", "y", "--out", str(tmp_path / "y.tif")]) == 0
+    out = tmp_path / "r"
+    assert main(["analyze", str(tmp_path / "y.tif"), "--out", str(out), "--quiet",
+                 "--radii", "40"]) == 0
+    with open(out / "profiles.csv") as fh:
+        rows = list(csv.DictReader(fh))
+    assert len(rows) == 40 and list(rows[0]) == list(PROFILE_COLUMNS)
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["profile_max_crossings"] == max(float(r["crossings"]) for r in rows)
+    assert (out / "profiles.png").stat().st_size > 1000
+    assert main(["analyze", str(tmp_path / "y.tif"), "--out", str(tmp_path / "n"), "--quiet",
+                 "--radii", "0"]) == 0
+    assert not (tmp_path / "n" / "profiles.csv").exists()

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["PALETTE", "new_axes", "plot_barcode", "plot_diagram", "save"]
+__all__ = ["PALETTE", "new_axes", "plot_barcode", "plot_diagram", "plot_profiles", "save"]
 
 PALETTE = ("#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00", "#F0E442", "#000000")
 
@@ -61,3 +61,42 @@ def plot_diagram(bars, ax, unit="", label="", color=PALETTE[1]):
     if label:
         ax.set_title(label)
     return bars[:, ::-1]
+
+
+#: Axis labels of the profile columns; "{u}" is replaced by the length unit.
+PROFILE_LABELS = {
+    "crossings": "crossings", "cut_ends": "cut ends", "total_length": "length ({u})",
+    "branch_points": "branch points", "tips": "tips", "branching_pattern": "branch points - tips",
+    "leaf_index": "mean leaf index", "tortuosity": "mean tortuosity", "flux_angle": "flux angle (rad)",
+    "flux_cosine": "flux cosine", "field": "field ({u}^-2 x charge)", "taper": "radius at cut ({u})",
+    "loops": "loops",
+}
+
+
+def plot_profiles(profiles, axes, unit="", labels=None):
+    """One small panel per profile column against radius.
+
+    ``profiles`` is one DataFrame or a list of them (one line each, e.g. one
+    per sample).  Returns {column: list of (radius, values)} as drawn.
+    """
+    if not isinstance(profiles, (list, tuple)):
+        profiles = [profiles]
+    columns = list(PROFILE_LABELS)
+    axes = np.asarray(axes).ravel()
+    drawn = {}
+    for ax, col in zip(axes, columns):
+        drawn[col] = []
+        for i, prof in enumerate(profiles):
+            order = np.argsort(np.asarray(prof["radius"]))
+            r = np.asarray(prof["radius"], float)[order]
+            y = np.asarray(prof[col], float)[order]
+            ax.plot(r, y, color=PALETTE[i % len(PALETTE)], lw=1.2,
+                    label=labels[i] if labels else None)
+            drawn[col].append((r, y))
+        ax.set_xlabel(f"radius ({unit})" if unit else "radius")
+        ax.set_ylabel(PROFILE_LABELS[col].format(u=unit or "unit"))
+    for ax in axes[len(columns):]:
+        ax.set_visible(False)
+    if labels:
+        axes[0].legend(fontsize=7)
+    return drawn
