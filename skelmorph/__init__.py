@@ -37,6 +37,8 @@ _LAZY = {
     "radial_profiles": "descriptors.radial",
     "profile_distance": "descriptors.radial",
     "profile_summary": "descriptors.radial",
+    "path_counts": "descriptors.paths",
+    "path_poset_invariants": "descriptors.paths",
     "bifurcation_ratio": "measure.orders",
     "phantoms": None,
 }

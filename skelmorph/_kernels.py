@@ -13,7 +13,7 @@ import numpy as np
 from numba import njit
 
 __all__ = ["bfs_order", "accumulate_down", "accumulate_max_down", "elder_rule", "strahler_orders",
-           "branch_tops", "wilson_tree", "kruskal", "walk_chains"]
+           "branch_tops", "wilson_tree", "kruskal", "walk_chains", "count_walk_paths"]
 
 
 @njit(cache=True)
@@ -255,3 +255,38 @@ def walk_chains(adj_start, adj_nbr, adj_seg, critical, seg_len, seg_a):
             c_end[nc] = x
             nc += 1
     return anchor, arc, chain, c_len[:nc], c_start[:nc], c_end[:nc]
+
+
+@njit(cache=True)
+def count_walk_paths(adj_start, adj_nbr, k):
+    """Simple paths with 1..k edges counted from each start (so each path twice).
+
+    Depth-first search with an on-path flag per vertex; every adjacency entry
+    is a distinct edge, so parallel edges give distinct paths.
+    """
+    n = len(adj_start) - 1
+    counts = np.zeros(k + 1, np.int64)
+    on_path = np.zeros(n, np.bool_)
+    stack_v = np.empty(k + 1, np.int64)
+    stack_i = np.empty(k + 1, np.int64)
+    for s in range(n):
+        depth = 0
+        stack_v[0] = s
+        stack_i[0] = adj_start[s]
+        on_path[s] = True
+        while depth >= 0:
+            v = stack_v[depth]
+            i = stack_i[depth]
+            if depth < k and i < adj_start[v + 1]:
+                stack_i[depth] = i + 1
+                w = adj_nbr[i]
+                if not on_path[w]:
+                    depth += 1
+                    counts[depth] += 1
+                    stack_v[depth] = w
+                    stack_i[depth] = adj_start[w]
+                    on_path[w] = True
+            else:
+                on_path[v] = False
+                depth -= 1
+    return counts

@@ -69,6 +69,9 @@ def _parser():
     t.add_argument("--seed", type=int, default=0, help="seed of random trees")
     t.add_argument("--radii", type=int, default=200, metavar="N",
                    help="radii of the radial (Sholl-type) profiles around the root (0 = none)")
+    t.add_argument("--paths", type=int, default=None, metavar="K",
+                   help="count simple paths up to K branches and write path-poset invariants "
+                        "to paths.json")
 
     f = sub.add_parser("phantom", help="write a synthetic structure with its ground truth",
                        description="Write a phantom as TIFF (with voxel size) and its "
@@ -106,7 +109,7 @@ def _cmd_analyze(args):
                      tree=None if args.tree == "none" else args.tree, n_trees=args.trees,
                      filtration=args.filtration, seed=args.seed,
                      root_point=args.root_point, root_face=args.root_face,
-                     n_radii=args.radii, out=out, progress=not args.quiet)
+                     n_radii=args.radii, paths=args.paths, out=out, progress=not args.quiet)
     s = result.summary
     u = s["unit"]
     print(f"{args.image}: {len(s['image_shape'])}D image {tuple(s['image_shape'])}, "
@@ -130,6 +133,8 @@ def _cmd_analyze(args):
         files += ", barcode.csv, barcode.png"
     if "profile_max_crossings" in s:
         files += ", profiles.csv, profiles.png"
+    if args.paths:
+        files += ", paths.json"
     print(f"results in {out}/ ({files})")
     print(CAUTION_TEXT)
 

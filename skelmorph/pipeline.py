@@ -35,13 +35,14 @@ class AnalysisResult:
     trees: list = field(default_factory=list, repr=False)
     barcodes: list = field(default_factory=list, repr=False)
     profiles: object = field(default=None, repr=False)
+    paths: dict = field(default=None, repr=False)
 
 
 def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dark=False,
             min_object_size=None, max_hole_size=None, prune=True, prune_factor=1.5,
             min_branch_length=0.0, extend_tips=False, smoothing=2.0, merge_junctions=True,
             root="thickest", tree="shortest", n_trees=1, filtration="radial", seed=0,
-            root_point=None, root_face=None, n_radii=200, out=None, figures=True, progress=False):
+            root_point=None, root_face=None, n_radii=200, paths=None, out=None, figures=True, progress=False):
     """Analyse one image end to end.
 
     Parameters
@@ -62,6 +63,9 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
     n_radii : int
         Radii of the radial profiles around the same root
         (:func:`skelmorph.radial_profiles`); 0 skips them.
+    paths : int, optional
+        Longest path of the path-poset invariants
+        (:func:`skelmorph.path_poset_invariants`), written to ``paths.json``.
     out : str or Path, optional
         Folder to write ``graph.graphml``, ``graph.vtp``, ``nodes.csv``,
         ``branches.csv``, ``summary.json`` and, with tree descriptors,
@@ -132,6 +136,21 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
         summary["profile_root_node"] = int(r)
         timings["profiles"] = time.perf_counter() - t0
     bar.update(note="profiles")
+    if paths:
+        from .descriptors.paths import path_poset_invariants
+        t0 = time.perf_counter()
+        inv = {m: path_poset_invariants(graph, int(paths), min_edges=m) for m in (0, 1)
+               if int(paths) >= m}
+        result.paths = {
+            "k": int(paths),
+            "counts": [int(x) for x in inv[0]["counts"]],
+            "from_vertices": {"f_vector": inv[0]["f_vector"], "betti": list(inv[0]["betti"])},
+            "from_edges": ({"f_vector": inv[1]["f_vector"], "betti": list(inv[1]["betti"])}
+                           if 1 in inv else None),
+        }
+        for j, x in enumerate(result.paths["counts"]):
+            summary[f"paths_{j}_edges"] = x
+        timings["paths"] = time.perf_counter() - t0
     if out is not None:
         write_results(result, out, figures=figures)
         bar.update(note="written")
@@ -156,6 +175,9 @@ def write_results(result, out, figures=True):
         files.append(out / "barcode.csv")
         if figures:
             files.append(_barcode_figure(result, out / "barcode.png"))
+    if result.paths is not None:
+        write_json(out / "paths.json", result.paths)
+        files.append(out / "paths.json")
     if result.profiles is not None:
         write_csv(out / "profiles.csv", {k: result.profiles[k].to_numpy()
                                          for k in result.profiles.columns})
