@@ -6,6 +6,8 @@
   barcode from gudhi's persistence, and spanning trees of the foam graph;
 - profiles: radial profiles with 10 and 1000 radii on a 10^6-point tree and
   the foam graph, against recomputing the ball's component per radius;
+- measures: the bone set (each part; local thickness against painting every
+  voxel and against one distance transform), vessel and venation measures;
 - paths: path counts up to the practical length on the foam graph and a
   10^5-node lattice, and the poset invariants against building the order
   complex explicitly (gudhi) where that finishes.
@@ -181,6 +183,40 @@ def bench_profiles(graph):
               f"x{t_ref / len(radii) * 1000 / t1000:.0f} faster; max length difference {err:.2e}")
 
 
+def bench_measures(size):
+    from skelmorph.measure.thickness import local_thickness
+    from skelmorph.measure.volume import edge_corrected_euler, mil_fabric, surface_and_smi
+    from skelmorph.measure.vessel import vessel_measures
+    from skelmorph.measure.venation import venation_measures
+    ph = foam(size=float(size), cell=16.0, rod_radius=2.5, seed=0)
+    m, sp = ph.mask, ph.spacing
+    dist, t_edt = clock(ndi.distance_transform_edt, m, sampling=sp)
+    _, t_th = clock(local_thickness, m, sp, dist=dist)
+    _, t_th_all = (None, None) if size > 128 else clock(local_thickness, m, sp, "all", dist)
+    _, t_sp = clock(local_thickness, ~m, sp)
+    _, t_smi = clock(surface_and_smi, m, sp)
+    _, t_chi = clock(edge_corrected_euler, m)
+    _, t_mil = clock(mil_fabric, m, sp)
+    print(f"\nbone set, foam {size}^3 ({m.mean():.2f} solid):")
+    line = (f"  distance transform {t_edt:.2f} s | Tb.Th {t_th:.2f} s (x{t_th / t_edt:.2f} the "
+            f"transform)")
+    if t_th_all is not None:
+        line += f" vs painting every voxel {t_th_all:.2f} s (x{t_th_all / t_th:.1f} slower)"
+    print(line)
+    print(f"  Tb.Sp {t_sp:.2f} s | surface + SMI {t_smi:.2f} s | Euler + edge correction "
+          f"{t_chi:.2f} s | MIL fabric {t_mil:.2f} s | total {t_th + t_sp + t_smi + t_chi + t_mil:.2f} s")
+    g = sm.skeleton_graph(m, sp)
+    _, t_v = clock(vessel_measures, g, m, sp)
+    print(f"  vessel measures {t_v:.2f} s ({g.n_edges} branches, {len(g.points) / t_v / 1e6:.2f} M "
+          f"points/s)")
+    if size == 128:
+        ven = sm.phantoms.make("venation", cells=(24, 24), n_spurs=40)
+        gv = sm.skeleton_graph(ven.mask, ven.spacing)
+        _, t_ven = clock(venation_measures, gv, ven.mask, ven.spacing)
+        print(f"  venation measures on a {ven.mask.shape} leaf phantom: {t_ven:.3f} s "
+              f"({ven.mask.size / t_ven / 1e6:.1f} M pixels/s)")
+
+
 def lattice_graph(shape):
     """Cubic lattice graph with unit spacing, as a SkeletonGraph."""
     from skelmorph import SkeletonGraph
@@ -248,8 +284,9 @@ def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--large", action="store_true", help="also run 512^3")
     ap.add_argument("--sizes", type=int, nargs="+", default=[128, 256])
-    ap.add_argument("--only", nargs="+", default=["pipeline", "trees", "profiles", "paths"],
-                    choices=["pipeline", "trees", "profiles", "paths"])
+    ap.add_argument("--only", nargs="+",
+                    default=["pipeline", "measures", "trees", "profiles", "paths"],
+                    choices=["pipeline", "measures", "trees", "profiles", "paths"])
     args = ap.parse_args(argv)
     sizes = args.sizes + ([512] if args.large else [])
     print(f"skelmorph {sm.__version__}, numpy {np.__version__}, python {sys.version.split()[0]}")
@@ -266,6 +303,9 @@ def main(argv=None):
             a, b = rows[0], rows[-1]
             print(f"\nscaling {a['size']}^3 -> {b['size']}^3: centreline voxels "
                   f"x{b['voxels'] / a['voxels']:.1f}")
+    if "measures" in args.only:
+        for size in sizes:
+            bench_measures(size)
     if graph is None and {"trees", "profiles", "paths"} & set(args.only):
         ph = foam(size=float(sizes[-1]), cell=16.0, rod_radius=2.5, seed=0)
         graph = sm.skeleton_graph(ph.mask, ph.spacing)

@@ -52,6 +52,14 @@ def _parser():
                    help="lengthen tip branches by their tip radius")
     k.add_argument("--smoothing", type=float, default=2.0,
                    help="centreline smoothing before measuring length, voxels (0 = none)")
+    m = a.add_argument_group("field measures")
+    m.add_argument("--measures", nargs="+", choices=["bone", "vessel", "venation", "all"],
+                   help="add the bone standard set (3D), vessel measures, leaf venation "
+                        "measures (2D), or all that apply")
+    m.add_argument("--region", default=None, metavar="FILE",
+                   help="venation: lamina mask image (default: the network's filled outline)")
+    m.add_argument("--thickness-map", action="store_true",
+                   help="bone: also write thickness.tif and separation.tif (diameters)")
     from .descriptors.barcode import FILTRATIONS
     from .rooting import ROOT_METHODS, TREE_METHODS
     t = a.add_argument_group("tree descriptors (largest component)")
@@ -109,7 +117,9 @@ def _cmd_analyze(args):
                      tree=None if args.tree == "none" else args.tree, n_trees=args.trees,
                      filtration=args.filtration, seed=args.seed,
                      root_point=args.root_point, root_face=args.root_face,
-                     n_radii=args.radii, paths=args.paths, out=out, progress=not args.quiet)
+                     n_radii=args.radii, paths=args.paths, measures=args.measures,
+                     region=args.region, thickness_map=args.thickness_map,
+                     out=out, progress=not args.quiet)
     s = result.summary
     u = s["unit"]
     print(f"{args.image}: {len(s['image_shape'])}D image {tuple(s['image_shape'])}, "
@@ -125,16 +135,14 @@ def _cmd_analyze(args):
               f"root {s['root_method']}, {s['filtration']} filtration)")
         print(f"  Strahler order   {s['max_strahler_order']:.3g} (bifurcation ratio "
               f"{s['bifurcation_ratio']:.3g})")
+    for key in ("BV/TV", "Tb.Th", "Tb.Sp", "Tb.N", "Conn.D", "SMI", "DA", "length_density",
+                "murray_exponent", "VLA", "areole_count", "free_ending_veinlets"):
+        if key in s:
+            print(f"  {key:<16} {s[key]:.4g}")
     if "profile_max_crossings" in s:
         print(f"  radial profile   max {s['profile_max_crossings']:.4g} crossings at "
               f"{s['profile_radius_of_max_crossings']:.4g} {u} from the root")
-    files = "graph.graphml, graph.vtp, nodes.csv, branches.csv, summary.json"
-    if "barcode_n_bars" in s:
-        files += ", barcode.csv, barcode.png"
-    if "profile_max_crossings" in s:
-        files += ", profiles.csv, profiles.png"
-    if args.paths:
-        files += ", paths.json"
+    files = ", ".join(sorted(p.name for p in out.iterdir() if not p.name.startswith(".")))
     print(f"results in {out}/ ({files})")
     print(CAUTION_TEXT)
 

@@ -11,6 +11,7 @@ import numpy as np
 
 from .build import skeleton_graph
 from .graph import SkeletonGraph
+from .errors import InputError
 from .io import ImageData, check_image_array, normalise_unit, read_image, validate_spacing, write_csv, write_json
 from .measure.graph import branch_table, node_table, summarize
 from .segment import to_mask
@@ -36,13 +37,17 @@ class AnalysisResult:
     barcodes: list = field(default_factory=list, repr=False)
     profiles: object = field(default=None, repr=False)
     paths: dict = field(default=None, repr=False)
+    branch_columns: dict = field(default_factory=dict, repr=False)
+    bifurcations: dict = field(default=None, repr=False)
+    maps: dict = field(default_factory=dict, repr=False)
 
 
 def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dark=False,
             min_object_size=None, max_hole_size=None, prune=True, prune_factor=1.5,
             min_branch_length=0.0, extend_tips=False, smoothing=2.0, merge_junctions=True,
             root="thickest", tree="shortest", n_trees=1, filtration="radial", seed=0,
-            root_point=None, root_face=None, n_radii=200, paths=None, out=None, figures=True, progress=False):
+            root_point=None, root_face=None, n_radii=200, paths=None, measures=None,
+            region=None, thickness_map=False, out=None, figures=True, progress=False):
     """Analyse one image end to end.
 
     Parameters
@@ -63,6 +68,17 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
     n_radii : int
         Radii of the radial profiles around the same root
         (:func:`skelmorph.radial_profiles`); 0 skips them.
+    measures : {'bone', 'vessel', 'venation', 'all'} or list, optional
+        Field measure sets added to the summary (see
+        :func:`skelmorph.measure.volume.bone_measures`,
+        :func:`~skelmorph.measure.vessel.vessel_measures`,
+        :func:`~skelmorph.measure.venation.venation_measures`); ``'all'`` means
+        every set that applies to the image's dimensionality.
+    region : path or bool array, optional
+        Lamina mask for venation measures (default: the network's filled
+        outline).
+    thickness_map : bool
+        With bone measures, write ``thickness.tif`` and ``separation.tif``.
     paths : int, optional
         Longest path of the path-poset invariants
         (:func:`skelmorph.path_poset_invariants`), written to ``paths.json``.
@@ -80,7 +96,8 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
     """
     from .progress import Progress
 
-    bar = Progress(6 + (out is not None), "analyze", enabled=progress)
+    sets = _measure_sets(measures)
+    bar = Progress(6 + len(sets) + (out is not None), "analyze", enabled=progress)
     timings = {}
     t0 = time.perf_counter()
     source = None
@@ -93,6 +110,7 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
         array = check_image_array(image)
         spacing = validate_spacing(1.0 if spacing is None else spacing, array.ndim)
     unit = normalise_unit(unit)
+    _check_sets(sets, array.ndim)
     timings["read"] = time.perf_counter() - t0
     bar.update(note="read")
     t0 = time.perf_counter()
@@ -114,7 +132,13 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
     )
     timings["measure"] = time.perf_counter() - t0
     bar.update(note="measured")
+    extra = _field_measures(sets, measures, graph, mask, spacing, unit, region, thickness_map,
+                            timings, bar)
     result = AnalysisResult(graph=graph, summary=summary, mask=mask, timings=timings)
+    summary.update(extra.pop("summary"))
+    result.branch_columns = extra["branch_columns"]
+    result.bifurcations = extra["bifurcations"]
+    result.maps = extra["maps"]
     if tree is not None and graph.n_nodes:
         from .descriptors.barcode import graph_barcodes
         t0 = time.perf_counter()
@@ -157,6 +181,62 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
     return result
 
 
+MEASURE_SETS = ("bone", "vessel", "venation")
+
+
+def _measure_sets(measures):
+    if measures is None or measures == "none":
+        return []
+    if isinstance(measures, str):
+        measures = [measures]
+    bad = [m for m in measures if m not in MEASURE_SETS + ("all",)]
+    if bad:
+        raise InputError(f"unknown measure set {bad[0]!r}; choose from "
+                         f"{', '.join(MEASURE_SETS)} or all")
+    return list(measures)
+
+
+def _check_sets(sets, ndim):
+    """Refuse a measure set that does not apply, before the costly steps."""
+    if "bone" in sets and ndim != 3:
+        raise InputError(f"bone measures need a 3D image; this one is {ndim}D "
+                         "(use --measures vessel or venation for 2D images)")
+    if "venation" in sets and ndim != 2:
+        raise InputError(f"venation measures need a 2D image; this one is {ndim}D")
+
+
+def _field_measures(sets, measures, graph, mask, spacing, unit, region, thickness_map, timings, bar):
+    """Bone, vessel and venation measure sets, as asked."""
+    out = {"summary": {}, "branch_columns": {}, "bifurcations": None, "maps": {}}
+    if not sets:
+        return out
+    if "all" in sets:
+        sets = ["bone", "vessel"] if mask.ndim == 3 else ["vessel", "venation"]
+    for name in sets:
+        t0 = time.perf_counter()
+        if name == "bone":
+            from .measure.volume import bone_measures
+            res = bone_measures(mask, spacing, unit, thickness_maps=thickness_map)
+            if thickness_map:
+                res, out["maps"] = res
+            out["summary"].update(res)
+        elif name == "vessel":
+            from .measure.vessel import vessel_measures
+            summ, cols, bif = vessel_measures(graph, mask, spacing, unit)
+            out["summary"].update(summ)
+            out["branch_columns"].update(cols)
+            out["bifurcations"] = bif
+        elif name == "venation":
+            from .measure.venation import venation_measures
+            if isinstance(region, (str, Path)):
+                region = np.asarray(read_image(region).array) > 0
+            out["summary"].update(venation_measures(graph, mask, spacing, unit, region=region))
+        timings[name] = time.perf_counter() - t0
+        bar.update(note=f"{name} measures")
+    out["summary"]["measure_sets"] = list(sets)
+    return out
+
+
 def write_results(result, out, figures=True):
     """Write the standard result files of one analysis into folder ``out``."""
     out = Path(out)
@@ -165,9 +245,18 @@ def write_results(result, out, figures=True):
     g.write(out / "graph.graphml")
     g.write(out / "graph.vtp")
     write_csv(out / "nodes.csv", node_table(g))
-    write_csv(out / "branches.csv", branch_table(g))
+    table = branch_table(g)
+    table.update(result.branch_columns)
+    write_csv(out / "branches.csv", table)
     write_json(out / "summary.json", result.summary)
     files = [out / f for f in OUTPUT_FILES]
+    if result.bifurcations is not None:
+        write_csv(out / "bifurcations.csv", result.bifurcations)
+        files.append(out / "bifurcations.csv")
+    for name, array in result.maps.items():
+        from .io import write_tiff
+        write_tiff(out / f"{name}.tif", array, g.spacing, g.unit)
+        files.append(out / f"{name}.tif")
     if result.barcodes:
         tree_id = np.concatenate([np.full(len(b), i) for i, b in enumerate(result.barcodes)])
         bars = np.concatenate(result.barcodes).reshape(-1, 2)

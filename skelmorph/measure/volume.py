@@ -1,0 +1,259 @@
+"""The trabecular bone standard set, computed directly in 3D.
+
+Names and definitions follow the micro-CT guideline of Bouxsein ML, Boyd SK,
+Christiansen BA, Guldberg RE, Jepsen KJ, Müller R (2010), J Bone Miner Res
+25:1468-1486: BV/TV, BS/BV, Tb.Th, Tb.Sp, Tb.N, Conn.D, SMI, DA.  They
+describe any porous solid (scaffolds and foams too), and they are research
+measurements, not diagnoses.
+
+Conventions (stated because implementations differ):
+
+* The volume of interest is the whole image; TV is its volume.
+* Faces cut by the volume's edge are not bone surface: the surface mesh is
+  open there (marching cubes on the unpadded image), so BS and SMI see only
+  the structure's own boundary.  Thickness and separation treat the edge as
+  not-a-wall likewise.
+* Conn.D = (cavities - Delta chi) / TV: the Odgaard-Gundersen edge-corrected
+  Euler contribution, plus the number of enclosed cavities (beta_2) so that
+  marrow cavities sealed inside the solid do not count as negative
+  connectivity (beta_1 = beta_0 + beta_2 - chi).  No "1 -" term; loose
+  particles are not removed (remove them first, ``--min-object-size``).
+* DA = MIL_max / MIL_min (>= 1) from the mean-intercept-length fabric tensor.
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+
+import numpy as np
+from scipy import ndimage as ndi
+
+from ..errors import InputError
+from .thickness import local_thickness
+
+__all__ = ["bone_measures", "edge_corrected_euler", "mil_fabric", "surface_and_smi",
+           "BONE_KEYS"]
+
+BONE_KEYS = ("BV/TV", "BS/BV", "Tb.Th", "Tb.Th.SD", "Tb.Sp", "Tb.Sp.SD", "Tb.N", "Conn.D",
+             "SMI", "DA")
+
+
+def _check_3d(mask):
+    mask = np.asarray(mask)
+    if mask.ndim != 3:
+        raise InputError(f"bone measures need a 3D image; this one is {mask.ndim}D "
+                         "(use --measures vessel or venation for 2D images)")
+    return mask.astype(bool, copy=False)
+
+
+def _runs(line):
+    """Number of runs of True in a 1-D array (the Euler number of a line)."""
+    line = np.asarray(line, bool)
+    return int(line[0]) + int(np.count_nonzero(line[1:] & ~line[:-1])) if line.size else 0
+
+
+def edge_corrected_euler(mask):
+    """Euler characteristic of the sample and its edge-corrected contribution.
+
+    chi is the Euler number with 26-connected foreground (scikit-image's
+    ``euler_number``, connectivity 3).  The contribution to an infinite
+    structure is Delta chi = chi - 1/2 sum_faces chi_2 + 1/4 sum_edges chi_1
+    - 1/8 sum_corners chi_0 (Odgaard A, Gundersen HJG 1993, Bone 14:173),
+    with 8-connected faces, runs on the box edges and corner voxels.
+
+    Returns
+    -------
+    chi : int
+    delta_chi : float
+    """
+    from skimage.measure import euler_number
+    m = _check_3d(mask)
+    chi = int(euler_number(m, connectivity=3))
+    faces = sum(int(euler_number(np.take(m, i, axis=a), connectivity=2))
+                for a in range(3) for i in (0, -1))
+    edges = 0
+    for a in range(3):
+        others = [b for b in range(3) if b != a]
+        for i, j in itertools.product((0, -1), repeat=2):
+            index = [slice(None)] * 3
+            index[others[0]], index[others[1]] = i, j
+            edges += _runs(m[tuple(index)])
+    corners = sum(int(m[i, j, k]) for i, j, k in itertools.product((0, -1), repeat=3))
+    return chi, chi - faces / 2 + edges / 4 - corners / 8
+
+
+def _primitive_directions(reach=2):
+    dirs = []
+    for v in itertools.product(range(-reach, reach + 1), repeat=3):
+        v = np.array(v)
+        if not v.any() or math.gcd(*map(int, np.abs(v))) != 1:
+            continue
+        first = v[np.flatnonzero(v)[0]]
+        if first > 0:  # one of each +/- pair
+            dirs.append(v)
+    return np.array(dirs)
+
+
+def mil_fabric(mask, spacing):
+    """Mean-intercept-length fabric tensor and degree of anisotropy.
+
+    For each of 49 lattice directions v (primitive integer vectors with
+    components in -2..2, one per +/- pair), the test lines are all voxel
+    pairs (x, x + v); MIL(v) = total test length / number of pairs whose
+    phases differ.  A quadratic form MIL(w)^-2 = w^T M w is fitted by least
+    squares; MIL_i = lambda_i^(-1/2) and DA = MIL_max / MIL_min (Whitehouse
+    1974, J Microsc 101:153; Harrigan & Mann 1984, J Mater Sci 19:761).
+
+    Returns
+    -------
+    da : float
+        >= 1; very large when an eigenvalue vanishes (e.g. parallel plates).
+    mil_axes : (3,) float array
+        Semi-axes of the MIL ellipsoid, largest first, in the image unit.
+    """
+    m = _check_3d(mask)
+    spacing = np.asarray(spacing, float)
+    rows, target = [], []
+    for v in _primitive_directions():
+        lo = tuple(slice(max(0, -k), m.shape[i] - max(0, k)) for i, k in enumerate(v))
+        hi = tuple(slice(max(0, k), m.shape[i] - max(0, -k)) for i, k in enumerate(v))
+        a, b = m[lo], m[hi]
+        if a.size == 0:
+            continue
+        step = float(np.linalg.norm(v * spacing))
+        crossings = np.count_nonzero(a != b)
+        w = v * spacing / step
+        rows.append([w[0] ** 2, w[1] ** 2, w[2] ** 2, 2 * w[0] * w[1], 2 * w[0] * w[2],
+                     2 * w[1] * w[2]])
+        target.append((crossings / (a.size * step)) ** 2)  # MIL^-2
+    coef, *_ = np.linalg.lstsq(np.array(rows), np.array(target), rcond=None)
+    M = np.array([[coef[0], coef[3], coef[4]], [coef[3], coef[1], coef[5]],
+                  [coef[4], coef[5], coef[2]]])
+    lam = np.linalg.eigvalsh(M)
+    lam = np.maximum(lam, lam.max() * 1e-12)
+    axes = np.sort(lam ** -0.5)[::-1]
+    return float(axes[0] / axes[-1]), axes
+
+
+def _outward_normals(volume, verts, normals, spacing):
+    """Unit vertex normals turned to point out of the solid (checked by sampling)."""
+    n = normals / np.maximum(np.linalg.norm(normals, axis=1, keepdims=True), 1e-12)
+    probe = (verts + 0.5 * min(spacing) * n) / np.asarray(spacing)
+    inside = ndi.map_coordinates(volume, probe.T, order=1, mode="nearest")
+    return n if inside.mean() < 0.5 else -n
+
+
+def surface_and_smi(mask, spacing, bv=None, sigma=1.0):
+    """Bone surface (marching-cubes mesh) and the structure model index.
+
+    BS is the area of the isosurface at 0.5 of the binary image
+    (scikit-image ``marching_cubes``), open where the structure meets the
+    image edge.  SMI = 6 BV (dS/dr) / S^2 (Hildebrand & Rüegsegger 1997,
+    Comput Methods Biomech Biomed Engin 1:15), with S and dS/dr taken on the
+    isosurface of the image smoothed by a Gaussian of ``sigma`` voxels (the
+    binary staircase biases curvature: a sphere gives 3.4 instead of 4) and
+    dS/dr the central difference of the mesh area when every vertex moves by
+    +-eps along its outward normal.  Concave surfaces make SMI small or
+    negative (Salmon et al. 2015, Front Endocrinol 6:162).
+
+    Returns
+    -------
+    bs : float
+    smi : float
+    """
+    from skimage.measure import marching_cubes, mesh_surface_area
+    m = _check_3d(mask)
+    spacing = tuple(float(s) for s in spacing)
+    if not m.any() or m.all():
+        return 0.0, float("nan")
+    verts, faces, _, _ = marching_cubes(m.astype(np.float32), level=0.5, spacing=spacing,
+                                        allow_degenerate=False)
+    bs = float(mesh_surface_area(verts, faces))
+    if bv is None:
+        bv = float(m.sum()) * float(np.prod(spacing))
+    smooth = ndi.gaussian_filter(m.astype(np.float32), sigma) if sigma else m.astype(np.float32)
+    verts, faces, normals, _ = marching_cubes(smooth, level=0.5, spacing=spacing,
+                                              allow_degenerate=False)
+    s = mesh_surface_area(verts, faces)
+    outward = _outward_normals(smooth, verts, normals, spacing)
+    eps = 0.01 * min(spacing)
+    grow = mesh_surface_area(verts + eps * outward, faces)
+    shrink = mesh_surface_area(verts - eps * outward, faces)
+    dsdr = (grow - shrink) / (2 * eps)
+    smi = 6.0 * bv * dsdr / (s * s) if s > 0 else float("nan")
+    return bs, float(smi)
+
+
+def bone_measures(mask, spacing, unit="um", thickness_maps=False, progress=None):
+    """The bone standard set of a 3D binary image.
+
+    Parameters
+    ----------
+    mask : bool array (3D)
+    spacing : sequence of 3 float
+    unit : str
+    thickness_maps : bool
+        Also return the local thickness maps of the solid and of the space.
+
+    Returns
+    -------
+    measures : dict
+        ``BV/TV`` (1), ``BS/BV`` (unit^-1), ``Tb.Th``, ``Tb.Th.SD``, ``Tb.Sp``,
+        ``Tb.Sp.SD`` (unit), ``Tb.N`` (unit^-1), ``Conn.D`` (unit^-3), ``SMI``
+        and ``DA`` (1), plus TV, BV, BS, chi, delta_chi and the units.
+    maps : dict, only with ``thickness_maps``
+        ``thickness`` and ``separation`` (float32, diameters in unit).
+
+    Notes
+    -----
+    Tb.Th and Tb.Sp are volume-weighted means of the local thickness of the
+    solid and of the space (maximal inscribed spheres, Hildebrand &
+    Rüegsegger 1997, J Microsc 185:67).  Tb.N = 1 / (Tb.Th + Tb.Sp), the
+    mean-spacing form (exact for parallel plates).  The "direct" Tb.N of
+    Hildebrand et al. (1999, J Bone Miner Res 14:1167) thickness-maps the
+    space between the solid's centrelines; it is not computed here because
+    its balls span whole marrow spaces and cost minutes at 256^3.
+    """
+    m = _check_3d(mask)
+    spacing = np.asarray(spacing, float)
+    if not m.any():
+        raise InputError("bone measures need some solid; the mask is empty")
+    if m.all():
+        raise InputError("bone measures need some space; the mask is all solid")
+    voxel = float(np.prod(spacing))
+    tv = m.size * voxel
+    bv = float(np.count_nonzero(m)) * voxel
+    step = progress or (lambda note: None)
+    th = local_thickness(m, spacing)
+    step("thickness")
+    sp = local_thickness(~m, spacing)
+    step("separation")
+    tb_th, tb_sp = float(th[m].mean()), float(sp[~m].mean())
+    bs, smi = surface_and_smi(m, spacing, bv)
+    chi, dchi = edge_corrected_euler(m)
+    from ..segment import count_cavities
+    cavities = count_cavities(m)
+    da, axes = mil_fabric(m, spacing)
+    step("surface, connectivity, anisotropy")
+    u = unit
+    out = {
+        "BV/TV": bv / tv,
+        "BS/BV": bs / bv,
+        "Tb.Th": tb_th, "Tb.Th.SD": float(th[m].std()),
+        "Tb.Sp": tb_sp, "Tb.Sp.SD": float(sp[~m].std()),
+        "Tb.N": 1.0 / (tb_th + tb_sp),
+        "Conn.D": (cavities - dchi) / tv + 0.0,
+        "SMI": smi,
+        "DA": da,
+        "TV": tv, "BV": bv, "BS": bs, "BS/TV": bs / tv,
+        "euler_characteristic": chi, "euler_edge_corrected": dchi, "cavities": cavities,
+        "MIL_axes": [float(a) for a in axes],
+        "bone_units": {"BV/TV": "1", "BS/BV": f"{u}^-1", "Tb.Th": u, "Tb.Th.SD": u, "Tb.Sp": u,
+                       "Tb.Sp.SD": u, "Tb.N": f"{u}^-1", "Conn.D": f"{u}^-3", "SMI": "1",
+                       "DA": "1 (MIL_max / MIL_min)", "TV": f"{u}^3", "BV": f"{u}^3",
+                       "BS": f"{u}^2"},
+    }
+    if thickness_maps:
+        return out, {"thickness": th, "separation": sp}
+    return out

@@ -1,0 +1,278 @@
+"""Field morphometrics: the bone standard set, vessel measures, leaf venation."""
+
+import json
+
+import numpy as np
+import pytest
+from hypothesis import given
+from hypothesis import strategies as st
+
+import skelmorph as sm
+from skelmorph.cli import main
+from skelmorph.errors import InputError
+from skelmorph.measure.thickness import local_thickness
+from skelmorph.measure.venation import venation_measures
+from skelmorph.measure.vessel import (bifurcations, murray_exponent, tortuosity_indices,
+                                      vessel_measures)
+from skelmorph.measure.volume import (bone_measures, edge_corrected_euler, mil_fabric,
+                                      surface_and_smi)
+from skelmorph.phantoms import _polyline_tube
+
+
+def ball(shape, centre, radius):
+    grid = np.indices(shape).astype(float)
+    return sum((g - c) ** 2 for g, c in zip(grid, centre)) < radius ** 2
+
+
+def square_rod_lattice(n, a, d):
+    """n^3 cells of period a with square rods of side d through the cell
+    centres, cut by the box faces (methods dossier 5.6)."""
+    size = n * a
+    line = np.zeros(size, bool)
+    for i in range(n):
+        c = i * a + a // 2
+        line[c - d // 2:c - d // 2 + d] = True
+    z, y, x = np.meshgrid(line, line, line, indexing="ij")
+    return (y & x) | (z & x) | (z & y)
+
+
+# ------------------------------------------------------------------- bone
+def test_plate_stack():
+    """Parallel plates t = 4, P = 16 spanning the volume: BV/TV = t/P, Tb.Th = t,
+    Tb.Sp = P - t, Tb.N = 1/P (methods dossier 5.7, analytic), Conn.D = 0,
+    SMI = 0 for plates that span the volume, and a large DA (MIL is
+    infinite along the plates)."""
+    ph = sm.phantoms.make("plates", thickness=4.0, period=16.0)
+    r = bone_measures(ph.mask, ph.spacing)
+    assert r["BV/TV"] == pytest.approx(0.25, rel=0.05)
+    assert abs(r["Tb.Th"] - 4) <= 1 and abs(r["Tb.Sp"] - 12) <= 1
+    assert r["Tb.N"] == pytest.approx(1 / 16, rel=0.05)
+    assert r["Conn.D"] == 0
+    assert abs(r["SMI"]) < 0.05
+    assert r["DA"] > 10
+    # Faces cut by the volume's edge are not surface: the open mesh ends at
+    # the outermost voxel centres, so each 48 x 48 plate face has area 47^2.
+    assert r["BS"] == pytest.approx(2 * 4 * 47 * 47, rel=1e-6)
+
+
+def test_odd_plate_parity():
+    """Plate t = 5 measures 6 (distance to background voxel centres; dossier 1.3)."""
+    m = np.zeros((40, 20, 20), bool)
+    m[10:15] = True
+    assert local_thickness(m, (1, 1, 1))[m].mean() == pytest.approx(6.0)
+
+
+@pytest.mark.parametrize("n, a, d, bvtv, chi, faces, dchi", [
+    (3, 10, 2, 0.104, -27, 54, -54),
+    (4, 10, 4, 0.352, -80, 96, -128),
+    (5, 12, 3, 0.15625, -175, 150, -250),
+])
+def test_square_rod_lattice(n, a, d, bvtv, chi, faces, dchi):
+    """Square-rod lattice (methods dossier 5.6 table, checked there with
+    scikit-image's euler_number): BV/TV = 3(d/a)^2 - 2(d/a)^3; per cell one
+    node and three rods, so Delta chi = -2 n^3 and Conn.D = 2 / a^3
+    (infinite-lattice argument, analytic); cubic symmetry gives DA = 1."""
+    m = square_rod_lattice(n, a, d)
+    assert m.mean() == pytest.approx(bvtv, abs=1e-12)
+    c, dc = edge_corrected_euler(m)
+    assert (c, dc) == (chi, dchi)
+    assert c - dc == faces / 2
+    r = bone_measures(m, (1.0, 1.0, 1.0))
+    assert r["Conn.D"] == pytest.approx(2 / a**3, rel=1e-12)
+    assert r["DA"] == pytest.approx(1.0, abs=0.02)
+
+
+def test_round_rod_lattice_phantom():
+    """The lattice phantom (round rods, pitch 16): Conn.D = 2/pitch^3 exactly."""
+    ph = sm.phantoms.make("lattice")
+    r = bone_measures(ph.mask, ph.spacing)
+    assert r["Conn.D"] == pytest.approx(ph.truth["conn_density"], rel=1e-12)
+    assert r["DA"] == pytest.approx(1.0, abs=0.02)
+
+
+def test_smi_closed_bodies():
+    """SMI = 12 V M / S^2 (analytic): sphere 4, torus 3 (Hildebrand &
+    Rüegsegger 1997; dossier 5.2, 5.8), finite slab 80 x 80 x 6 = 1.109
+    (dossier 5.7; mesh value there 1.125)."""
+    sphere = ball((50, 50, 50), (24.5, 24.5, 24.5), 20)
+    assert surface_and_smi(sphere, (1, 1, 1))[1] == pytest.approx(4.0, abs=0.05)
+    torus = sm.phantoms.make("torus", major_radius=24, tube_radius=8)
+    assert surface_and_smi(torus.mask, torus.spacing)[1] == pytest.approx(3.0, abs=0.05)
+    slab = np.zeros((20, 100, 100), bool)
+    slab[7:13, 10:90, 10:90] = True
+    assert surface_and_smi(slab, (1, 1, 1))[1] == pytest.approx(1.109, abs=0.06)
+
+
+def test_solid_with_spherical_voids():
+    """A solid block with spherical voids of volume fraction phi: SMI = 4 -
+    4/phi (derived from the Steiner formula with concave void surfaces;
+    dossier 5.8), and Conn.D = 0 since the voids are cavities, not tunnels."""
+    m = np.ones((48, 48, 48), bool)
+    for c in [(12, 12, 12), (12, 35, 24), (35, 14, 32), (33, 34, 12)]:
+        m &= ~ball(m.shape, c, 10)
+    phi = 1 - m.mean()
+    r = bone_measures(m, (1, 1, 1))
+    assert r["cavities"] == 4
+    assert r["Conn.D"] == 0
+    assert r["SMI"] == pytest.approx(4 - 4 / phi, rel=0.03)
+
+
+@given(st.integers(0, 2**31 - 1), st.sampled_from([(1.0, 1.0, 1.0), (2.0, 1.0, 1.0)]))
+def test_ridge_thickness_equals_brute_force(seed, spacing):
+    """Painting only distance-ridge centres gives exactly the map painted
+    from every voxel (the definition, Hildebrand & Rüegsegger 1997)."""
+    rng = np.random.default_rng(seed)
+    m = np.zeros((18, 20, 22), bool)
+    for _ in range(6):
+        m |= ball(m.shape, rng.uniform(0, 20, 3), rng.uniform(2, 6))
+    a = local_thickness(m, spacing)
+    b = local_thickness(m, spacing, method="all")
+    np.testing.assert_array_equal(a, b)
+
+
+def test_mil_plates_vs_lattice():
+    ph = sm.phantoms.make("plates")
+    da, axes = mil_fabric(ph.mask, ph.spacing)
+    assert da > 10 and len(axes) == 3
+
+
+# ----------------------------------------------------------------- vessels
+def test_tortuosity_analytic_curves():
+    """Sampled analytic curves (methods dossier 5.3, 5.4; closed forms):
+    sin x on [0, 2 pi]: L = 7.640396, DM = 1.216007, SOAM = 0.411182, one
+    interior inflection; helix a = 15, c = 5, 3 turns: L = 298.0376,
+    DM = 3.16228, SOAM = 1/sqrt(a^2 + c^2) = 0.063246, no inflection."""
+    x = np.linspace(0, 2 * np.pi, 20001)
+    t = tortuosity_indices(np.column_stack([np.sin(x), x]), [0, len(x)])
+    assert t["length"][0] == pytest.approx(7.640396, rel=1e-6)
+    assert t["distance_metric"][0] == pytest.approx(1.216007, rel=1e-6)
+    assert t["sum_of_angles"][0] == pytest.approx(0.411182, rel=1e-4)
+    assert t["inflections"][0] == 1
+    assert t["inflection_count_metric"][0] == pytest.approx(2 * 1.216007, rel=1e-6)
+    s = np.linspace(0, 6 * np.pi, 4001)
+    h = np.column_stack([5 * s, 15 * np.sin(s), 15 * np.cos(s)])
+    t = tortuosity_indices(h, [0, len(h)])
+    assert t["length"][0] == pytest.approx(298.0376, rel=1e-5)
+    assert t["distance_metric"][0] == pytest.approx(3.16228, rel=1e-5)
+    assert t["sum_of_angles"][0] == pytest.approx(0.063246, rel=2e-3)
+    assert t["inflections"][0] == 0
+
+
+def test_vessel_phantoms():
+    """Voxelised phantoms: helix DM within 3 % of arc length / chord
+    (analytic); torus SOAM within 3 % of 1/R (dossier 5.2) and DM undefined;
+    a tube along two periods of a sine has 3 interior inflections (dossier
+    5.4: 2n - 1); a straight tube none."""
+    helix = sm.phantoms.make("helix")
+    g = sm.skeleton_graph(helix.mask, helix.spacing)
+    _, cols, _ = vessel_measures(g, helix.mask, helix.spacing)
+    assert cols["distance_metric"][0] == pytest.approx(helix.truth["distance_metric"], rel=0.03)
+    torus = sm.phantoms.make("torus")
+    g = sm.skeleton_graph(torus.mask, torus.spacing)
+    _, cols, _ = vessel_measures(g, torus.mask, torus.spacing)
+    assert np.isnan(cols["distance_metric"][0])
+    assert cols["sum_of_angles"][0] == pytest.approx(1 / 30, rel=0.03)
+    x = np.linspace(10, 130, 400)
+    pts = np.column_stack([np.full_like(x, 12.0), 40 + 12 * np.sin(2 * np.pi * (x - 10) / 60), x])
+    m = _polyline_tube((24, 80, 140), (1, 1, 1), pts, 3.0)
+    g = sm.skeleton_graph(m, (1, 1, 1))
+    _, cols, _ = vessel_measures(g, m, (1, 1, 1))
+    assert cols["inflections"].tolist() == [3]
+    tube = sm.phantoms.make("tube")
+    g = sm.skeleton_graph(tube.mask, tube.spacing)
+    _, cols, _ = vessel_measures(g, tube.mask, tube.spacing)
+    assert cols["inflections"].tolist() == [0]
+
+
+@pytest.mark.parametrize("radii, x", [
+    ((1, 2 ** (-1 / 3), 2 ** (-1 / 3)), 3.0), ((1, 2 ** -0.5, 2 ** -0.5), 2.0),
+    ((1, 0.5, 0.5), 1.0), ((10, 8, 7), 2.436345)])
+def test_murray_exponent_solver(radii, x):
+    """Generalised exponent r0^x = r1^x + r2^x (methods dossier 5.5 oracles)."""
+    assert murray_exponent(*radii) == pytest.approx(x, abs=1e-6)
+    assert np.isnan(murray_exponent(1, 1.2, 0.5))
+
+
+def test_y_bifurcation_murray_and_angle():
+    """Y phantom with Murray radii (r0 = 5, daughters 5 x 2^(-1/3)) at +-30
+    degrees: exponent near 3 (voxel radii shift it; tolerance 0.3) and
+    daughter angle 60 +- 3 degrees (dossier 5.5, tolerance as stated there)."""
+    ph = sm.phantoms.make("y")
+    g = sm.skeleton_graph(ph.mask, ph.spacing)
+    b = bifurcations(g)
+    assert len(b["node"]) == 1
+    assert b["murray_exponent"][0] == pytest.approx(3.0, abs=0.3)
+    assert b["daughter_angle"][0] == pytest.approx(60.0, abs=3.0)
+    summary, _, _ = vessel_measures(g, ph.mask, ph.spacing)
+    assert summary["length_density"] == pytest.approx(g.edge_length.sum() / ph.mask.size)
+    assert summary["volume_fraction"] == pytest.approx(ph.mask.mean())
+
+
+# ---------------------------------------------------------------- venation
+@pytest.mark.parametrize("cells, spurs", [((4, 5), 0), ((3, 3), 4), ((2, 6), 6)])
+def test_venation_grid(cells, spurs):
+    """Grid of k x m cells: areoles = k m exactly; free-ending spurs counted
+    exactly; VLA within 3 % of drawn length / grid area when the lamina is
+    the grid (phantom construction)."""
+    ph = sm.phantoms.make("venation", cells=cells, n_spurs=spurs)
+    g = sm.skeleton_graph(ph.mask, ph.spacing)
+    r = venation_measures(g, ph.mask, ph.spacing)
+    assert r["areole_count"] == cells[0] * cells[1]
+    assert r["free_ending_veinlets"] == spurs
+    assert r["lamina_source"] == "network outline"
+    assert r["loop_density"] == pytest.approx(cells[0] * cells[1] / r["lamina_area"])
+    # The grid between the outer vein centrelines as the lamina.
+    ys, xs = np.nonzero(ph.mask)
+    region = np.zeros_like(ph.mask)
+    pad = 6 + 4  # margin + half the midrib width (phantom defaults)
+    region[pad:pad + 40 * cells[0] + 1, pad:pad + 40 * cells[1] + 1] = True
+    rr = venation_measures(g, ph.mask, ph.spacing, region=region)
+    assert rr["lamina_source"] == "region"
+    expected = ph.truth["axis_length"] / ph.truth["lamina_area"]
+    assert rr["VLA"] == pytest.approx(expected, rel=0.03)
+
+
+# ----------------------------------------------------------- CLI and errors
+def test_cli_measures(tmp_path):
+    assert main(["phantom", "lattice", "--out", str(tmp_path / "l.tif")]) == 0
+    out = tmp_path / "r"
+    assert main(["analyze", str(tmp_path / "l.tif"), "--out", str(out), "--quiet", "--radii", "0",
+                 "--tree", "none", "--measures", "all", "--thickness-map"]) == 0
+    s = json.loads((out / "summary.json").read_text())
+    for key in ("BV/TV", "BS/BV", "Tb.Th", "Tb.Th.SD", "Tb.Sp", "Tb.Sp.SD", "Tb.N", "Conn.D",
+                "SMI", "DA", "length_density", "volume_fraction", "murray_exponent"):
+        assert key in s
+    assert s["bone_units"]["Conn.D"] == "um^-3"
+    assert (out / "thickness.tif").exists() and (out / "bifurcations.csv").exists()
+    header = (out / "branches.csv").read_text().splitlines()[0].split(",")
+    assert "distance_metric" in header and "sum_of_angles" in header
+    th = sm.read_image(out / "thickness.tif")
+    assert th.array.max() > 0 and th.spacing == (1.0, 1.0, 1.0)
+    assert main(["phantom", "venation", "--out", str(tmp_path / "v.tif")]) == 0
+    assert main(["analyze", str(tmp_path / "v.tif"), "--out", str(tmp_path / "v"), "--quiet",
+                 "--measures", "venation", "--radii", "0", "--tree", "none"]) == 0
+    s = json.loads((tmp_path / "v" / "summary.json").read_text())
+    assert s["areole_count"] == 20 and s["lamina_source"] == "network outline"
+
+
+def test_measure_errors(tmp_path, capsys):
+    ph2 = sm.phantoms.make("venation")
+    with pytest.raises(InputError, match="need a 3D image"):
+        bone_measures(ph2.mask, ph2.spacing)
+    ph3 = sm.phantoms.make("y")
+    g3 = sm.skeleton_graph(ph3.mask, ph3.spacing)
+    with pytest.raises(InputError, match="need a 2D image"):
+        venation_measures(g3, ph3.mask, ph3.spacing)
+    g2 = sm.skeleton_graph(ph2.mask, ph2.spacing)
+    with pytest.raises(InputError, match="must match"):
+        venation_measures(g2, ph2.mask, ph2.spacing, region=np.ones((3, 3), bool))
+    with pytest.raises(InputError, match="empty"):
+        bone_measures(np.zeros((5, 5, 5), bool), (1, 1, 1))
+    with pytest.raises(InputError, match="all solid"):
+        bone_measures(np.ones((5, 5, 5), bool), (1, 1, 1))
+    with pytest.raises(InputError, match="unknown measure set"):
+        sm.analyze(ph3.mask, measures="teeth")
+    np.save(tmp_path / "v.npy", ph2.mask)
+    assert main(["analyze", str(tmp_path / "v.npy"), "--spacing", "1", "--measures", "bone"]) == 2
+    err = capsys.readouterr().err
+    assert "bone measures need a 3D image" in err and err.count("\n") == 1
