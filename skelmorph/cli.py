@@ -90,9 +90,40 @@ def _parser():
     f.add_argument("--spacing", type=float, nargs="+", default=None, metavar="S")
     f.add_argument("--seed", type=int, default=None, help="seed (random phantoms)")
 
+    c = sub.add_parser("cohort", help="analyse and compare a study of many samples",
+                       description="Batch analysis of a study and comparison of its groups. "
+                                   + CAUTION_TEXT)
+    csub = c.add_subparsers(dest="cohort_command", required=True, metavar="STEP")
+    r = csub.add_parser("run", help="analyse every sample of a manifest (cached, resumable)",
+                        description="Analyse every sample listed in a manifest CSV (columns "
+                                    "sample, path, optional group, spacing, unit) into "
+                                    "OUT/samples/<sample>/, reusing finished samples, and "
+                                    "write the cohort tables. " + CAUTION_TEXT)
+    r.add_argument("manifest", help="CSV with one row per sample")
+    r.add_argument("--out", "-o", required=True, help="study folder")
+    r.add_argument("--workers", type=int, default=1, help="local worker processes (default 1)")
+    r.add_argument("--scheduler", default=None, metavar="ADDRESS",
+                   help="run on a Dask cluster, e.g. tcp://host:8786 (shared file system)")
+    r.add_argument("--options", default=None, metavar="TOML",
+                   help="analysis options (the analyze keywords) in a TOML file")
+    r.add_argument("--quiet", "-q", action="store_true", help="no progress bar")
+    k2 = csub.add_parser("compare", help="compare the groups of an analysed study",
+                         description="Statistics, distances, learned descriptor weights and "
+                                     "metric, classification, clustering and figures for the "
+                                     "groups of a study folder. " + CAUTION_TEXT)
+    k2.add_argument("study", help="study folder written by 'cohort run'")
+    k2.add_argument("--by", default="group", help="column that defines the groups")
+    k2.add_argument("--out", default=None, help="output folder (default: the study folder)")
+    k2.add_argument("--permutations", type=int, default=100,
+                    help="label permutations for the p-value of the accuracy (default 100)")
+    k2.add_argument("--repeats", type=int, default=10,
+                    help="repeats of the stratified cross-validation (default 10)")
+    k2.add_argument("--seed", type=int, default=0)
+
     d = sub.add_parser("demo", help="run the main job on built-in phantom data",
-                       description="Analyse an invented study of phantom scans in two groups "
-                                   "and print how they differ. " + CAUTION_TEXT)
+                       description="Build an invented two-group study of phantom scans, "
+                                   "analyse it, compare the groups and print how they "
+                                   "differ. " + CAUTION_TEXT)
     d.add_argument("out", nargs="?", default="skelmorph-demo", help="output folder")
     d.add_argument("--quiet", "-q", action="store_true", help="no progress bar")
     return p
@@ -170,14 +201,62 @@ def _cmd_phantom(args):
     print(f"wrote {out} {ph.mask.shape} voxel {ph.spacing} {ph.unit}, truth in {truth}")
 
 
-def _cmd_demo(args):
-    from .demo import run_demo
+def _cmd_cohort(args):
+    if args.cohort_command == "run":
+        from .cohort.run import run_cohort
+        if args.workers < 1:
+            raise SkelmorphError("--workers must be at least 1")
+        rep = run_cohort(args.manifest, args.out, options=args.options, workers=args.workers,
+                         scheduler=args.scheduler, progress=not args.quiet)
+        print(f"{len(rep.computed)} analysed, {len(rep.cached)} reused, {len(rep.failed)} failed "
+              f"in {rep.seconds:.1f} s; results in {args.out}/ (samples/, cohort.csv, "
+              f"profiles.csv, barcodes.csv, failures.csv)")
+        for sample, message in rep.failed.items():
+            print(f"  failed: {sample}: {message}")
+        return 0
+    from .cohort.compare import compare_cohort
+    res = compare_cohort(args.study, by=args.by, out=args.out, n_repeats=args.repeats,
+                         n_permutations=args.permutations, seed=args.seed)
+    print(headline(res))
+    print(f"tables, figures and comparison.json in {args.out or args.study}/")
+    print(CAUTION_TEXT)
+    return 0
 
-    print("skelmorph demo: an invented study of porous scaffolds printed in two settings "
-          "(fine vs coarse pores), 4 phantom scans each.", flush=True)
-    table = run_demo(args.out, progress=not args.quiet)
-    print(table)
-    print(f"results in {args.out}/ (samples/<sample>/..., cohort.csv, comparison.json)")
+
+def headline(res):
+    """A few plain lines on how the groups differ."""
+    groups = ", ".join(f"{g} (n={n})" for g, n in res["groups"].items())
+    lines = [f"{res['n_samples']} samples in groups {groups}"]
+    sig = res["significant_measures"]
+    if sig:
+        parts = []
+        for m in sig[:6]:
+            r = res["measures"][m]
+            parts.append(f"{m} (q={r['q']:.2g}, {r['effect_name']} {r['effect_size']:+.2f})")
+        lines.append(f"measures that differ (FDR {res['alpha']}): " + "; ".join(parts)
+                     + (f"; and {len(sig) - 6} more" if len(sig) > 6 else ""))
+    else:
+        lines.append(f"no measure differs after FDR at {res['alpha']}")
+    lines.append(f"cross-validated accuracy {res['cv_accuracy']:.2f} ± {res['cv_accuracy_sd']:.2f} "
+                 f"with the learned metric, {res['cv_accuracy_baseline']:.2f} ± "
+                 f"{res['cv_accuracy_baseline_sd']:.2f} without (chance "
+                 f"{res['chance_accuracy']:.2f}); permutation p = {res['permutation_p']:.3g}")
+    w = ", ".join(f"{k} {v:.2f}" for k, v in sorted(res["weights"].items(), key=lambda kv: -kv[1])
+                  if v >= 0.005)
+    lines.append(f"descriptor weights ({res['separation_index']['name']} "
+                 f"{res['separation_index']['value']:.2f}): {w}")
+    return "\n".join(lines)
+
+
+def _cmd_demo(args):
+    from .demo import SAMPLES_PER_GROUP, run_demo
+
+    print("skelmorph demo: an invented study of printed porous scaffolds, fresh vs after a "
+          f"degradation bath, {SAMPLES_PER_GROUP} phantom scans per group.", flush=True)
+    res = run_demo(args.out, progress=not args.quiet)
+    print(headline(res))
+    print(f"scans and manifest in {args.out}/, results in {args.out}/study/ (samples/, "
+          "cohort.csv, measures.csv, comparison.json, figures/)")
     print(CAUTION_TEXT)
 
 
@@ -190,7 +269,8 @@ def main(argv=None):
     args = _parser().parse_args(argv)
     warnings.showwarning = _show_warning
     try:
-        {"analyze": _cmd_analyze, "phantom": _cmd_phantom, "demo": _cmd_demo}[args.command](args)
+        {"analyze": _cmd_analyze, "phantom": _cmd_phantom, "demo": _cmd_demo,
+         "cohort": _cmd_cohort}[args.command](args)
     except SkelmorphError as exc:
         print(f"skelmorph: error: {exc}", file=sys.stderr)
         return 2

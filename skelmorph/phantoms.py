@@ -361,9 +361,11 @@ def random_tree(generations=4, seed=0, root_radius=4.0, root_length=30.0, length
     return Phantom(mask, sp, unit, truth)
 
 
-def foam(size=64.0, cell=16.0, rod_radius=2.0, seed=0, jitter=0.35, spacing=1.0, unit="um"):
+def foam(size=64.0, cell=16.0, rod_radius=2.0, seed=0, jitter=0.35, spacing=1.0, unit="um",
+         break_fraction=0.0):
     """A seeded open-cell foam (trabecular-like): rods along the edges of a
-    Voronoi tessellation of jittered grid points.
+    Voronoi tessellation of jittered grid points; ``break_fraction`` of the
+    rods (chosen at random) are left out, which disconnects the network.
 
     Truth (as drawn, before voxelisation): rod count, node count and total
     rod length inside the box; the mask's own Euler number is the reference
@@ -390,6 +392,9 @@ def foam(size=64.0, cell=16.0, rod_radius=2.0, seed=0, jitter=0.35, spacing=1.0,
     lo, hi = -cell, size + cell
     keep = np.all((pa > lo) & (pa < hi) & (pb > lo) & (pb < hi), axis=1)
     pa, pb = pa[keep], pb[keep]
+    if break_fraction > 0:
+        stay = rng.random(len(pa)) >= break_fraction
+        pa, pb = pa[stay], pb[stay]
     mask = draw_tubes(_shape_for([size] * 3, sp), sp, pa, pb, rod_radius)
     inside = np.all((pa >= 0) & (pa <= size) & (pb >= 0) & (pb <= size), axis=1)
     truth = dict(n_rods_inside=int(inside.sum()), rod_radius=float(rod_radius),

@@ -117,14 +117,20 @@ def test_console_script_runs_as_module(tmp_path):
 
 
 def test_demo(tmp_path, capsys):
+    """The demo study: thinner, partly broken struts in the bathed group are
+    found (Tb.Th and Conn.D lower) and the groups are told apart."""
     assert main(["demo", str(tmp_path / "d"), "--quiet"]) == 0
     out = capsys.readouterr().out
-    assert "fine" in out and "coarse" in out and "not a diagnosis" in out
-    cohort = (tmp_path / "d" / "cohort.csv").read_text().splitlines()
-    assert len(cohort) == 9
-    comp = json.loads((tmp_path / "d" / "comparison.json").read_text())
-    # Smaller pores give more struts: the fine group has more loops per volume.
-    assert comp["groups"]["fine"]["cycle_rank"]["mean"] > comp["groups"]["coarse"]["cycle_rank"]["mean"]
+    assert "fresh" in out and "bathed" in out and "not a diagnosis" in out
+    assert "cross-validated accuracy" in out
+    cohort = (tmp_path / "d" / "study" / "cohort.csv").read_text().splitlines()
+    assert len(cohort) == 17
+    comp = json.loads((tmp_path / "d" / "study" / "comparison.json").read_text())
+    assert comp["cv_accuracy"] >= 0.9 and comp["permutation_p"] < 0.05
+    for key in ("Tb.Th", "Conn.D"):
+        assert key in comp["significant_measures"]
+        groups = comp["measures"][key]["groups"]
+        assert groups["bathed"]["mean"] < groups["fresh"]["mean"]
 
 
 def test_cli_tree_descriptors(tmp_path, capsys):

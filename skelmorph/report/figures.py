@@ -100,3 +100,120 @@ def plot_profiles(profiles, axes, unit="", labels=None):
     if labels:
         axes[0].legend(fontsize=7)
     return drawn
+
+
+def _group_colours(labels):
+    names = sorted(set(map(str, labels)))
+    return names, {g: PALETTE[i % len(PALETTE)] for i, g in enumerate(names)}
+
+
+def plot_group_values(values, labels, ax, name, q=None):
+    """One measure by group: points with a median bar; returns {group: values drawn}."""
+    values = np.asarray(values, float)
+    labels = np.asarray(labels).astype(str)
+    names, colour = _group_colours(labels)
+    drawn = {}
+    rng = np.random.default_rng(0)
+    for i, g in enumerate(names):
+        v = values[(labels == g) & np.isfinite(values)]
+        x = i + rng.uniform(-0.15, 0.15, len(v))
+        ax.scatter(x, v, s=14, color=colour[g], alpha=0.85)
+        if len(v):
+            ax.hlines(np.median(v), i - 0.3, i + 0.3, color="0.2", lw=1.5)
+        drawn[g] = v
+    ax.set_xticks(range(len(names)))
+    ax.set_xticklabels(names, fontsize=8)
+    title = name if q is None or not np.isfinite(q) else f"{name}\nq = {q:.2g}"
+    ax.set_title(title, fontsize=8)
+    ax.set_ylabel(name, fontsize=7)
+    return drawn
+
+
+def profile_bands(profiles, label_of, column, n_grid=100):
+    """Median and interquartile band of a profile column per group on a common grid.
+
+    Returns {group: (grid, q25, median, q75)}.
+    """
+    rmax = float(profiles["radius"].max())
+    grid = np.linspace(0.0, rmax, n_grid)
+    curves = {}
+    for s, p in profiles.groupby("sample"):
+        if s not in label_of:
+            continue
+        p = p.sort_values("radius")
+        y = np.interp(grid, p["radius"].to_numpy(float), np.nan_to_num(p[column].to_numpy(float)))
+        curves.setdefault(str(label_of[s]), []).append(y)
+    out = {}
+    for g, ys in sorted(curves.items()):
+        ys = np.array(ys)
+        out[g] = (grid, np.percentile(ys, 25, axis=0), np.median(ys, axis=0),
+                  np.percentile(ys, 75, axis=0))
+    return out
+
+
+def plot_profile_bands(profiles, label_of, column, ax, unit=""):
+    """Median profile per group with its interquartile band; returns the bands drawn."""
+    bands = profile_bands(profiles, label_of, column)
+    names, colour = _group_colours(list(bands))
+    for g in names:
+        grid, lo, med, hi = bands[g]
+        ax.fill_between(grid, lo, hi, color=colour[g], alpha=0.25, lw=0)
+        ax.plot(grid, med, color=colour[g], lw=1.5, label=f"{g} (median, IQR)")
+    ax.set_xlabel(f"radius from root ({unit})" if unit else "radius from root")
+    ax.set_ylabel(PROFILE_LABELS.get(column, column).format(u=unit or "unit"))
+    ax.legend(fontsize=7)
+    return bands
+
+
+def plot_embedding(coords, labels, ax, title):
+    """2D embedding coloured by group; returns the coordinates drawn per group."""
+    coords = np.asarray(coords, float)
+    labels = np.asarray(labels).astype(str)
+    names, colour = _group_colours(labels)
+    drawn = {}
+    for g in names:
+        sel = labels == g
+        xy = coords[sel] if coords.shape[1] >= 2 else np.column_stack([coords[sel, 0], np.zeros(sel.sum())])
+        ax.scatter(xy[:, 0], xy[:, 1], s=18, color=colour[g], label=g)
+        drawn[g] = xy
+    ax.set_title(title, fontsize=8)
+    ax.set_xlabel("axis 1 (distance units)")
+    ax.set_ylabel("axis 2 (distance units)")
+    ax.legend(fontsize=7)
+    return drawn
+
+
+def plot_dendrogram_heatmap(d, labels):
+    """Average-linkage dendrogram above the distance matrix in leaf order.
+
+    Returns the figure; ``fig.skelmorph_order`` holds the leaf order drawn.
+    """
+    import matplotlib
+    matplotlib.use("Agg", force=False)
+    import matplotlib.pyplot as plt
+    from scipy.cluster.hierarchy import dendrogram, linkage
+    from scipy.spatial.distance import squareform
+    d = np.asarray(d, float)
+    labels = np.asarray(labels).astype(str)
+    names, colour = _group_colours(labels)
+    fig = plt.figure(figsize=(5.2, 5.6), constrained_layout=True)
+    gs = fig.add_gridspec(3, 2, height_ratios=[1, 0.12, 4], width_ratios=[20, 1])
+    ax_d = fig.add_subplot(gs[0, 0])
+    z = linkage(squareform(d, checks=False), "average")
+    dn = dendrogram(z, ax=ax_d, no_labels=True, color_threshold=0, above_threshold_color="0.3")
+    ax_d.set_axis_off()
+    order = np.array(dn["leaves"])
+    ax_g = fig.add_subplot(gs[1, 0])
+    from matplotlib.colors import ListedColormap
+    ax_g.imshow([[names.index(g) for g in labels[order]]], aspect="auto",
+                cmap=ListedColormap([colour[g] for g in names]), vmin=-0.5, vmax=len(names) - 0.5)
+    ax_g.set_yticks([])
+    ax_g.set_xticks([])
+    ax_g.set_ylabel("group", rotation=0, ha="right", fontsize=7)
+    ax_h = fig.add_subplot(gs[2, 0])
+    im = ax_h.imshow(d[np.ix_(order, order)], cmap="cividis", aspect="auto")
+    ax_h.set_xlabel("samples (dendrogram order)")
+    ax_h.set_ylabel("samples (dendrogram order)")
+    fig.colorbar(im, cax=fig.add_subplot(gs[2, 1]), label="combined distance (weighted, unitless)")
+    fig.skelmorph_order = order
+    return fig

@@ -1,0 +1,1 @@
+"""Cohorts: many samples in groups, analysed in batch and compared."""

@@ -1,0 +1,301 @@
+"""Batch analysis of a study: cached, resumable, atomic, local pool or Dask cluster.
+
+Every sample is analysed exactly as ``skelmorph analyze`` would, into
+``OUT/samples/<sample>/``.  A sample is recomputed only when its input
+content, voxel size or the analysis options changed: ``done.json`` in its
+folder holds the cache key.  Each sample is written into a temporary
+folder that is renamed into place when complete, so a killed run leaves no
+half-written sample and a re-run picks up where it stopped.  A failing
+sample is recorded in ``failures.csv`` with its message; the rest goes on.
+"""
+
+from __future__ import annotations
+
+import csv
+import hashlib
+import json
+import os
+import shutil
+import time
+import uuid
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from .._version import __version__
+from ..errors import SkelmorphError
+from ..io import atomic_path, write_csv, write_json
+from .manifest import Sample, read_manifest
+
+__all__ = ["run_cohort", "load_options", "ANALYZE_OPTIONS", "RunReport", "collect_tables"]
+
+#: Options of :func:`skelmorph.analyze` that a cohort options file may set.
+ANALYZE_OPTIONS = {
+    "channel", "threshold", "dark", "min_object_size", "max_hole_size", "prune", "prune_factor",
+    "min_branch_length", "extend_tips", "smoothing", "merge_junctions", "root", "tree",
+    "n_trees", "filtration", "seed", "root_point", "root_face", "n_radii", "paths",
+    "measures", "thickness_map", "figures",
+}
+
+
+@dataclass
+class RunReport:
+    """What a run did: sample ids computed, reused from cache, failed (with messages)."""
+
+    computed: list = field(default_factory=list)
+    cached: list = field(default_factory=list)
+    failed: dict = field(default_factory=dict)
+    seconds: float = 0.0
+
+
+def load_options(path):
+    """Analysis options from a TOML file (top level or an ``[analyze]`` table)."""
+    if path is None:
+        return {}
+    try:
+        import tomllib
+    except ImportError:  # Python 3.10
+        import tomli as tomllib
+    path = Path(path)
+    try:
+        data = tomllib.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise SkelmorphError(f"options file {path} does not exist") from None
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+        raise SkelmorphError(f"options file {path} is not valid TOML: {exc}") from None
+    data = data.get("analyze", data)
+    unknown = sorted(set(data) - ANALYZE_OPTIONS)
+    if unknown:
+        raise SkelmorphError(f"options file {path}: unknown option(s) {', '.join(unknown)}; "
+                             f"allowed: {', '.join(sorted(ANALYZE_OPTIONS))}")
+    return dict(data)
+
+
+# ------------------------------------------------------------------ cache keys
+def _files_of(path):
+    path = Path(path)
+    if path.is_dir():
+        return sorted(p for p in path.iterdir() if p.is_file() and not p.name.startswith("."))
+    return [path]
+
+
+def _content_hash(path, previous=None):
+    """SHA-256 of the input's bytes; reused from ``previous`` when size and
+    modification time of every file are unchanged (a no-op re-run reads nothing)."""
+    files = _files_of(path)
+    stats = [[str(f), f.stat().st_size, f.stat().st_mtime_ns] for f in files]
+    if previous and previous.get("stats") == stats:
+        return previous["content"], stats
+    h = hashlib.sha256()
+    for f in files:
+        h.update(f.name.encode())
+        with open(f, "rb") as fh:
+            for chunk in iter(lambda: fh.read(1 << 22), b""):
+                h.update(chunk)
+    return h.hexdigest(), stats
+
+
+def _cache_key(sample, content, options):
+    blob = json.dumps({"content": content, "spacing": sample.spacing, "unit": sample.unit,
+                       "options": options, "version": __version__}, sort_keys=True, default=str)
+    return hashlib.sha256(blob.encode()).hexdigest()
+
+
+def _read_done(folder):
+    try:
+        return json.loads((folder / "done.json").read_text())
+    except (OSError, ValueError):
+        return None
+
+
+# ------------------------------------------------------------------ one sample
+def _analyze_one(sample, options, out, key, stats):
+    """Analyse one sample into a temporary folder, then move it into place.
+
+    Runs in a worker (process or Dask); returns a small dict, never raises.
+    """
+    out = Path(out)
+    final = out / "samples" / sample.sample
+    tmp = out / "samples" / f".{sample.sample}.tmp-{uuid.uuid4().hex[:8]}"
+    t0 = time.perf_counter()
+    try:
+        from ..pipeline import analyze
+        opts = dict(options)
+        opts.setdefault("figures", False)
+        analyze(sample.path, spacing=sample.spacing, unit=sample.unit, out=tmp, progress=False,
+                **opts)
+        write_json(tmp / "done.json", {"key": key, "content": stats[0], "stats": stats[1],
+                                       "sample": sample.sample, "group": sample.group,
+                                       "seconds": time.perf_counter() - t0,
+                                       "finished": time.time(), "skelmorph_version": __version__})
+        if final.exists():
+            old = final.with_name(f".{sample.sample}.old-{uuid.uuid4().hex[:8]}")
+            os.replace(final, old)
+            os.replace(tmp, final)
+            shutil.rmtree(old, ignore_errors=True)
+        else:
+            os.replace(tmp, final)
+        return {"sample": sample.sample, "status": "done", "seconds": time.perf_counter() - t0}
+    except Exception as exc:  # a failing sample must not stop the study
+        shutil.rmtree(tmp, ignore_errors=True)
+        kind = "" if isinstance(exc, SkelmorphError) else f"{type(exc).__name__}: "
+        message = " ".join(str(exc).split()) or type(exc).__name__
+        return {"sample": sample.sample, "status": "failed", "error": kind + message,
+                "seconds": time.perf_counter() - t0}
+
+
+# ------------------------------------------------------------------ the run
+def run_cohort(manifest, out, options=None, workers=1, scheduler=None, progress=True):
+    """Analyse every sample of a manifest; reuse what is already done.
+
+    Parameters
+    ----------
+    manifest : path or list of Sample
+    out : path
+        Study folder: ``samples/<sample>/``, ``cohort.csv``, ``profiles.csv``,
+        ``barcodes.csv``, ``failures.csv``, ``run.json``.
+    options : dict or path, optional
+        Options of :func:`skelmorph.analyze` (a dict or a TOML file).
+    workers : int
+        Local worker processes (1 runs in this process).
+    scheduler : str or distributed.Client, optional
+        A Dask scheduler address (``tcp://host:port``) or client; the same
+        work then runs on the cluster's workers.  The study folder must be
+        reachable from them (a shared file system).
+    progress : bool
+        Progress bar on stderr.
+
+    Returns
+    -------
+    RunReport
+    """
+    from ..progress import Progress
+
+    t_start = time.perf_counter()
+    samples = manifest if isinstance(manifest, list) else read_manifest(manifest)
+    if isinstance(options, (str, Path)):
+        options = load_options(options)
+    options = dict(options or {})
+    unknown = sorted(set(options) - ANALYZE_OPTIONS)
+    if unknown:
+        raise SkelmorphError(f"unknown analysis option(s): {', '.join(unknown)}")
+    out = Path(out)
+    (out / "samples").mkdir(parents=True, exist_ok=True)
+    for stale in (out / "samples").glob(".*.tmp-*"):
+        shutil.rmtree(stale, ignore_errors=True)  # left by a killed run
+    report = RunReport()
+    todo = []
+    for s in samples:
+        done = _read_done(out / "samples" / s.sample)
+        content, stats = _content_hash(s.path, done)
+        key = _cache_key(s, content, options)
+        if done and done.get("key") == key:
+            report.cached.append(s.sample)
+        else:
+            todo.append((s, key, (content, stats)))
+    bar = Progress(len(todo), "cohort", enabled=progress and bool(todo))
+    for result in _execute(todo, options, out, workers, scheduler):
+        if result["status"] == "done":
+            report.computed.append(result["sample"])
+        else:
+            report.failed[result["sample"]] = result["error"]
+        bar.update(note=f"{result['sample']} {result['status']}")
+    by_id = {s.sample: s for s in samples}
+    write_csv(out / "failures.csv", {
+        "sample": list(report.failed), "path": [str(by_id[k].path) for k in report.failed],
+        "error": list(report.failed.values())})
+    collect_tables(samples, out)
+    report.seconds = time.perf_counter() - t_start
+    write_json(out / "run.json", {
+        "n_samples": len(samples), "computed": len(report.computed), "cached": len(report.cached),
+        "failed": len(report.failed), "options": options, "workers": workers,
+        "scheduler": str(scheduler) if scheduler else None, "seconds": report.seconds,
+        "skelmorph_version": __version__})
+    return report
+
+
+def _execute(todo, options, out, workers, scheduler):
+    """Yield results as samples finish, from this process, a pool or a Dask cluster."""
+    if not todo:
+        return
+    if scheduler is not None:
+        from distributed import Client, as_completed
+        client = scheduler if isinstance(scheduler, Client) else Client(scheduler)
+        try:
+            futures = [client.submit(_analyze_one, s, options, str(out), key, stats,
+                                     pure=False, key=f"skelmorph-{s.sample}-{uuid.uuid4().hex[:6]}")
+                       for s, key, stats in todo]
+            for fut in as_completed(futures):
+                yield fut.result()
+        finally:
+            if client is not scheduler:
+                client.close()
+        return
+    if workers <= 1:
+        for s, key, stats in todo:
+            yield _analyze_one(s, options, out, key, stats)
+        return
+    from concurrent.futures import ProcessPoolExecutor, as_completed
+    with ProcessPoolExecutor(max_workers=int(workers)) as pool:
+        futures = [pool.submit(_analyze_one, s, options, out, key, stats) for s, key, stats in todo]
+        for fut in as_completed(futures):
+            yield fut.result()
+
+
+# ------------------------------------------------------------------ tables
+def _scalar_items(summary):
+    for k, v in summary.items():
+        if isinstance(v, bool):
+            yield k, int(v)
+        elif isinstance(v, (int, float)) or v is None:
+            yield k, v
+        elif isinstance(v, str) and k in ("unit", "lamina_source", "tree_method", "root_method",
+                                          "filtration"):
+            yield k, v
+
+
+def collect_tables(samples, out):
+    """Cohort tables from the finished sample folders.
+
+    ``cohort.csv``: one row per finished sample (id, group, path, voxel size,
+    every scalar of its summary); ``profiles.csv`` and ``barcodes.csv``: long
+    tables with the sample and group on every row.
+    """
+    out = Path(out)
+    rows, prof, bars = [], [], []
+    for s in samples:
+        folder = out / "samples" / s.sample
+        done = _read_done(folder)
+        if not done:
+            continue
+        try:
+            summary = json.loads((folder / "summary.json").read_text())
+        except (OSError, ValueError):
+            continue
+        row = {"sample": s.sample, "group": s.group, "path": str(s.path),
+               "spacing": " ".join(str(x) for x in summary.get("spacing", [])), **s.meta}
+        row.update(dict(_scalar_items(summary)))
+        rows.append(row)
+        for name, store in (("profiles.csv", prof), ("barcode.csv", bars)):
+            f = folder / name
+            if f.exists():
+                with open(f, newline="") as fh:
+                    for r in csv.DictReader(fh):
+                        store.append({"sample": s.sample, "group": s.group, **r})
+    _write_rows(out / "cohort.csv", rows)
+    _write_rows(out / "profiles.csv", prof)
+    _write_rows(out / "barcodes.csv", bars)
+
+
+def _write_rows(path, rows):
+    keys = []
+    for r in rows:
+        keys.extend(k for k in r if k not in keys)
+    with atomic_path(path) as tmp:
+        with open(tmp, "w", newline="") as fh:
+            w = csv.DictWriter(fh, fieldnames=keys, restval="")
+            w.writeheader()
+            for r in rows:
+                w.writerow({k: ("" if v is None or (isinstance(v, float) and not np.isfinite(v))
+                                else v) for k, v in r.items()})
