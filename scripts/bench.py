@@ -10,6 +10,7 @@
   voxel and against one distance transform), vessel and venation measures;
 - cohort: 24 foam samples of 128^3 with 1 and 2 workers, a no-op re-run, and
   profile distance matrices for 1000 synthetic samples;
+- report: the demo study's page, and a synthetic 1000-sample study (time and size);
 - paths: path counts up to the practical length on the foam graph and a
   10^5-node lattice, and the poset invariants against building the order
   complex explicitly (gudhi) where that finishes.
@@ -254,6 +255,51 @@ def bench_cohort(n_samples=24, size=128):
           f"~{t_one / 200 * 1000 * 999 / 2:.0f} s pair by pair (x{t_one / 200 * 499500 / t_d:.0f})")
 
 
+def _folder_size(paths):
+    return sum(p.stat().st_size for p in paths if p.is_file())
+
+
+def bench_report(n_large=1000):
+    import shutil
+    from skelmorph.cohort.compare import compare_cohort
+    from skelmorph.demo import run_demo
+    from skelmorph.report.html import write_report
+    print("\nreport pages:")
+    with tempfile.TemporaryDirectory() as tmp:
+        tmp = Path(tmp)
+        run_demo(tmp / "demo", progress=False)
+        study = tmp / "demo" / "study"
+        shutil.rmtree(study / "figures" / "gallery")
+        _, t = clock(write_report, study)
+        size = _folder_size([study / "report.html", *(study / "figures").rglob("*.png")])
+        print(f"  demo study (16 samples): page with figures written in {t:.2f} s, "
+              f"{size / 1e6:.2f} MB")
+        # A synthetic 1000-sample study: measures only, 24 sample folders for the gallery.
+        big = tmp / "big"
+        (big / "samples").mkdir(parents=True)
+        rng = np.random.default_rng(0)
+        groups = np.array(["a", "b", "c"])[rng.integers(0, 3, n_large)]
+        shift = (groups == "b") * 0.5
+        cols = {"sample": [f"s{i:04d}" for i in range(n_large)], "group": groups,
+                "path": ["x.tif"] * n_large, "spacing": ["1 1 1"] * n_large,
+                "unit": ["um"] * n_large}
+        for k in range(12):
+            cols[f"measure_{k}"] = rng.normal(shift * (k < 3), 1, n_large)
+        cols["total_length"] = rng.gamma(5, 100, n_large)
+        cols["cycle_rank"] = rng.poisson(300, n_large)
+        import pandas as pd
+        pd.DataFrame(cols).to_csv(big / "cohort.csv", index=False)
+        one = next((tmp / "demo" / "study" / "samples").iterdir())
+        for s in cols["sample"][:24]:
+            (big / "samples" / s).mkdir()
+            shutil.copy(one / "graph.npz", big / "samples" / s / "graph.npz")
+        _, t_cmp = clock(compare_cohort, big, n_repeats=2, n_permutations=10)
+        _, t = clock(write_report, big)
+        size = _folder_size([big / "report.html", *(big / "figures").rglob("*.png")])
+        print(f"  synthetic {n_large}-sample study: compare {t_cmp:.1f} s; page with figures "
+              f"{t:.2f} s, {size / 1e6:.2f} MB (targets: 30 s, 20 MB)")
+
+
 def lattice_graph(shape):
     """Cubic lattice graph with unit spacing, as a SkeletonGraph."""
     from skelmorph import SkeletonGraph
@@ -322,8 +368,10 @@ def main(argv=None):
     ap.add_argument("--large", action="store_true", help="also run 512^3")
     ap.add_argument("--sizes", type=int, nargs="+", default=[128, 256])
     ap.add_argument("--only", nargs="+",
-                    default=["pipeline", "measures", "trees", "profiles", "paths", "cohort"],
-                    choices=["pipeline", "measures", "trees", "profiles", "paths", "cohort"])
+                    default=["pipeline", "measures", "trees", "profiles", "paths", "cohort",
+                             "report"],
+                    choices=["pipeline", "measures", "trees", "profiles", "paths", "cohort",
+                             "report"])
     args = ap.parse_args(argv)
     sizes = args.sizes + ([512] if args.large else [])
     print(f"skelmorph {sm.__version__}, numpy {np.__version__}, python {sys.version.split()[0]}")
@@ -354,6 +402,8 @@ def main(argv=None):
         bench_paths(graph)
     if "cohort" in args.only:
         bench_cohort()
+    if "report" in args.only:
+        bench_report()
 
 
 if __name__ == "__main__":

@@ -77,6 +77,8 @@ def _parser():
     t.add_argument("--seed", type=int, default=0, help="seed of random trees")
     t.add_argument("--radii", type=int, default=200, metavar="N",
                    help="radii of the radial (Sholl-type) profiles around the root (0 = none)")
+    a.add_argument("--report", action="store_true",
+                   help="also write report.html, a one-sample page with figures")
     t.add_argument("--paths", type=int, default=None, metavar="K",
                    help="count simple paths up to K branches and write path-poset invariants "
                         "to paths.json")
@@ -119,6 +121,13 @@ def _parser():
     k2.add_argument("--repeats", type=int, default=10,
                     help="repeats of the stratified cross-validation (default 10)")
     k2.add_argument("--seed", type=int, default=0)
+    k3 = csub.add_parser("report", help="write the study's report page (report.html)",
+                         description="Write one self-contained HTML page (figures in figures/ "
+                                     "beside it) for an analysed study; compares it first if "
+                                     "needed. " + CAUTION_TEXT)
+    k3.add_argument("study", help="study folder")
+    k3.add_argument("--out", default=None, help="page path (default STUDY/report.html)")
+    k3.add_argument("--gallery", type=int, default=24, help="sample pictures shown (default 24)")
 
     d = sub.add_parser("demo", help="run the main job on built-in phantom data",
                        description="Build an invented two-group study of phantom scans, "
@@ -151,6 +160,9 @@ def _cmd_analyze(args):
                      n_radii=args.radii, paths=args.paths, measures=args.measures,
                      region=args.region, thickness_map=args.thickness_map,
                      out=out, progress=not args.quiet)
+    if args.report:
+        from .report.html import write_sample_report
+        write_sample_report(out, result)
     s = result.summary
     u = s["unit"]
     print(f"{args.image}: {len(s['image_shape'])}D image {tuple(s['image_shape'])}, "
@@ -214,6 +226,12 @@ def _cmd_cohort(args):
         for sample, message in rep.failed.items():
             print(f"  failed: {sample}: {message}")
         return 0
+    if args.cohort_command == "report":
+        from .report.html import write_report
+        page = write_report(args.study, out=args.out, max_gallery=args.gallery)
+        print(f"report: {page}")
+        print(CAUTION_TEXT)
+        return 0
     from .cohort.compare import compare_cohort
     res = compare_cohort(args.study, by=args.by, out=args.out, n_repeats=args.repeats,
                          n_permutations=args.permutations, seed=args.seed)
@@ -257,6 +275,7 @@ def _cmd_demo(args):
     print(headline(res))
     print(f"scans and manifest in {args.out}/, results in {args.out}/study/ (samples/, "
           "cohort.csv, measures.csv, comparison.json, figures/)")
+    print(f"report: {Path(args.out) / 'study' / 'report.html'}")
     print(CAUTION_TEXT)
 
 

@@ -56,11 +56,15 @@ def make_scans(folder):
 
 
 def run_demo(out="skelmorph-demo", progress=True, workers=None):
-    """Make the study, analyse it, compare the groups; returns the comparison dict."""
+    """Make the study, analyse it, compare the groups, write the report page;
+    returns the comparison dict."""
     from .cohort.compare import compare_cohort
     from .cohort.run import run_cohort
     out = Path(out)
     manifest = make_scans(out)
     workers = workers or min(2, os.cpu_count() or 1)
+    from .report.html import write_report
     run_cohort(manifest, out / "study", options=DEMO_OPTIONS, workers=workers, progress=progress)
-    return compare_cohort(out / "study", by="group", n_repeats=5, n_permutations=100)
+    result = compare_cohort(out / "study", by="group", n_repeats=5, n_permutations=100)
+    write_report(out / "study")
+    return result

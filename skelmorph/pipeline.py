@@ -22,7 +22,8 @@ __all__ = ["AnalysisResult", "analyze", "write_results", "CAUTION"]
 CAUTION = ("Research measurements, not a diagnosis: skelmorph's numbers describe image "
            "structure and must not be used for clinical decisions; defer to qualified practice.")
 
-OUTPUT_FILES = ("graph.graphml", "graph.vtp", "nodes.csv", "branches.csv", "summary.json")
+OUTPUT_FILES = ("graph.graphml", "graph.vtp", "graph.npz", "nodes.csv", "branches.csv",
+                "summary.json")
 
 
 @dataclass
@@ -244,6 +245,7 @@ def write_results(result, out, figures=True):
     g = result.graph
     g.write(out / "graph.graphml")
     g.write(out / "graph.vtp")
+    g.write(out / "graph.npz")
     write_csv(out / "nodes.csv", node_table(g))
     table = branch_table(g)
     table.update(result.branch_columns)

@@ -118,7 +118,8 @@ def test_console_script_runs_as_module(tmp_path):
 
 def test_demo(tmp_path, capsys):
     """The demo study: thinner, partly broken struts in the bathed group are
-    found (Tb.Th and Conn.D lower) and the groups are told apart."""
+    found (Tb.Th and the number of loops lower) and the groups are told
+    apart; the page is written."""
     assert main(["demo", str(tmp_path / "d"), "--quiet"]) == 0
     out = capsys.readouterr().out
     assert "fresh" in out and "bathed" in out and "not a diagnosis" in out
@@ -127,7 +128,8 @@ def test_demo(tmp_path, capsys):
     assert len(cohort) == 17
     comp = json.loads((tmp_path / "d" / "study" / "comparison.json").read_text())
     assert comp["cv_accuracy"] >= 0.9 and comp["permutation_p"] < 0.05
-    for key in ("Tb.Th", "Conn.D"):
+    assert (tmp_path / "d" / "study" / "report.html").exists()
+    for key in ("Tb.Th", "cycle_rank"):
         assert key in comp["significant_measures"]
         groups = comp["measures"][key]["groups"]
         assert groups["bathed"]["mean"] < groups["fresh"]["mean"]

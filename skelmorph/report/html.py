@@ -1,0 +1,439 @@
+"""The study report: one self-contained HTML page with figures beside it.
+
+The page has no scripts and no outside resources: plain HTML with an inline
+style sheet, figures as PNG files in ``figures/`` referenced by relative
+paths.  It reads top to bottom: headline findings, the caution, the study,
+the figures, a gallery of samples, and the methods.
+"""
+
+from __future__ import annotations
+
+import html
+import json
+import platform
+from pathlib import Path
+
+import numpy as np
+
+from .._version import __version__
+from ..io import atomic_path
+
+__all__ = ["write_report", "write_sample_report", "render_thumbnail", "REFERENCES"]
+
+REFERENCES = [
+    "Bouxsein ML et al. (2010) Guidelines for assessment of bone microstructure in rodents "
+    "using micro-computed tomography. J Bone Miner Res 25:1468-1486.",
+    "Hildebrand T, Rüegsegger P (1997) A new method for the model-independent assessment of "
+    "thickness in three-dimensional images. J Microsc 185:67-75.",
+    "Hildebrand T, Rüegsegger P (1997) Quantification of bone microarchitecture with the "
+    "structure model index. Comput Methods Biomech Biomed Engin 1:15-23.",
+    "Odgaard A, Gundersen HJG (1993) Quantification of connectivity in cancellous bone. "
+    "Bone 14:173-182.",
+    "Bullitt E et al. (2003) Measuring tortuosity of the intracerebral vasculature from MRA "
+    "images. IEEE Trans Med Imaging 22:1163-1171.",
+    "Murray CD (1926) The physiological principle of minimum work. PNAS 12:207-214.",
+    "Sack L, Scoffoni C (2013) Leaf venation. New Phytol 198:983-1000.",
+    "Kanari L et al. (2018) A topological representation of branching neuronal morphologies. "
+    "Neuroinformatics 16:3-13.",
+    "Adams H et al. (2017) Persistence images. JMLR 18(8):1-35.",
+    "Sholl DA (1953) Dendritic organization in the neurons of the visual and motor cortices "
+    "of the cat. J Anat 87:387-406.",
+    "Khalil R et al. (2022) PLoS Comput Biol 18:e1010229 (radial descriptor functions).",
+    "Wilson DB (1996) Generating random spanning trees more quickly than the cover time. "
+    "Proc 28th ACM STOC 296-303.",
+    "Strahler AN (1957) Trans Am Geophys Union 38:913-920; Horton RE (1945) Geol Soc Am Bull "
+    "56:275-370.",
+    "Goldberger J et al. (2005) Neighbourhood components analysis. NIPS 17.",
+    "Benjamini Y, Hochberg Y (1995) J R Stat Soc B 57:289-300.",
+    "Rousseeuw PJ (1987) Silhouettes. J Comput Appl Math 20:53-65.",
+    "Ojala M, Garriga GC (2010) Permutation tests for studying classifier performance. "
+    "JMLR 11:1833-1863.",
+]
+
+_STYLE = """
+body{font-family:Georgia,'Times New Roman',serif;max-width:60rem;margin:2rem auto;padding:0 1rem;
+color:#1b1b1b;line-height:1.5;background:#fdfdfb}
+h1{font-size:1.7rem;margin-bottom:.2rem}h2{font-size:1.25rem;border-bottom:1px solid #ccc;
+margin-top:2.2rem}h3{font-size:1.05rem}
+table{border-collapse:collapse;font-size:.85rem;margin:.5rem 0}
+td,th{border-bottom:1px solid #e2e2e2;padding:.2rem .6rem;text-align:left}
+th{background:#f1f1ec}
+.caution{border-left:4px solid #b35806;background:#fff6ec;padding:.6rem 1rem}
+.num{font-weight:bold}
+figure{margin:1rem 0}figcaption{font-size:.85rem;color:#444}
+.gallery{display:flex;flex-wrap:wrap;gap:.6rem}.gallery figure{width:11rem;margin:0}
+.gallery img{width:11rem;height:auto;border:1px solid #ddd}
+img.wide{max-width:100%;height:auto}
+.small{font-size:.85rem;color:#444}
+"""
+
+
+def _esc(x):
+    return html.escape(str(x))
+
+
+def _fmt(x, digits=3):
+    if isinstance(x, (int, np.integer)):
+        return str(int(x))
+    try:
+        x = float(x)
+    except (TypeError, ValueError):
+        return _esc(x)
+    if not np.isfinite(x):
+        return "n/a"
+    return f"{x:.{digits}g}"
+
+
+def _num(key, value, digits=3):
+    return f'<span class="num" data-key="{_esc(key)}">{_fmt(value, digits)}</span>'
+
+
+def _img(src, alt, caption, wide=True):
+    cls = ' class="wide"' if wide else ""
+    return (f'<figure><img src="{_esc(src)}" alt="{_esc(alt)}"{cls}>'
+            f"<figcaption>{caption}</figcaption></figure>")
+
+
+def _table(header, rows):
+    head = "".join(f"<th>{_esc(h)}</th>" for h in header)
+    body = "".join("<tr>" + "".join(f"<td>{c}</td>" for c in r) + "</tr>" for r in rows)
+    return f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
+
+
+def render_thumbnail(graph, path, image=None, size=(3.2, 3.2), dpi=70):
+    """A small picture of a skeleton graph coloured by radius.
+
+    3D: the centrelines in a perspective view (matplotlib, off-screen); 2D:
+    the graph drawn over the image.  Returns the per-branch colours' data
+    range (radius min, max) drawn.
+    """
+    import matplotlib
+    matplotlib.use("Agg", force=False)
+    import matplotlib.pyplot as plt
+    from matplotlib.collections import LineCollection
+
+    from .figures import save
+    pts, off, r = graph.points, graph.offsets, graph.point_radius
+    segs, vals = [], []
+    for e in range(graph.n_edges):
+        p = pts[off[e]:off[e + 1]]
+        q = r[off[e]:off[e + 1]]
+        segs.extend(np.stack([p[:-1], p[1:]], axis=1))
+        vals.extend(0.5 * (q[:-1] + q[1:]))
+    segs = np.array(segs).reshape(-1, 2, graph.ndim)
+    vals = np.array(vals)
+    lo, hi = (float(vals.min()), float(vals.max())) if len(vals) else (0.0, 1.0)
+    u = graph.unit
+    if graph.ndim == 3:
+        from mpl_toolkits.mplot3d.art3d import Line3DCollection
+        fig = plt.figure(figsize=size)
+        ax = fig.add_subplot(projection="3d")
+        lc = Line3DCollection(segs[:, :, ::-1], cmap="cividis", linewidths=1.0)
+        lc.set_array(vals)
+        lc.set_clim(lo, hi if hi > lo else lo + 1)
+        ax.add_collection(lc)
+        if len(segs):
+            for k, setter in enumerate((ax.set_xlim, ax.set_ylim, ax.set_zlim)):
+                c = segs[:, :, 2 - k]
+                setter(float(c.min()), float(c.max()) + 1e-9)
+        ax.set_xlabel(f"x ({u})", fontsize=6)
+        ax.set_ylabel(f"y ({u})", fontsize=6)
+        ax.set_zlabel(f"z ({u})", fontsize=6)
+        ax.tick_params(labelsize=5)
+    else:
+        fig, ax = plt.subplots(figsize=size)
+        if image is not None:
+            sy, sx = graph.spacing
+            ax.imshow(np.asarray(image), cmap="gray", origin="upper",
+                      extent=(-sx / 2, (image.shape[1] - 0.5) * sx, (image.shape[0] - 0.5) * sy,
+                              -sy / 2))
+        lc = LineCollection(segs[:, :, ::-1], cmap="cividis", linewidths=1.2)
+        lc.set_array(vals)
+        lc.set_clim(lo, hi if hi > lo else lo + 1)
+        ax.add_collection(lc)
+        ax.autoscale()
+        ax.set_aspect("equal")
+        if image is None:
+            ax.invert_yaxis()
+        ax.set_xlabel(f"x ({u})", fontsize=6)
+        ax.set_ylabel(f"y ({u})", fontsize=6)
+        ax.tick_params(labelsize=5)
+    cb = fig.colorbar(lc, ax=ax, shrink=0.6)
+    cb.set_label(f"radius ({u})", fontsize=6)
+    cb.ax.tick_params(labelsize=5)
+    save(fig, path, dpi=dpi)
+    return lo, hi
+
+
+def _versions():
+    import importlib.metadata as md
+    out = {"skelmorph": __version__, "python": platform.python_version()}
+    for name in ("numpy", "scipy", "scikit-image", "networkx", "scikit-learn", "matplotlib",
+                 "pandas", "numba", "tifffile"):
+        try:
+            out[name] = md.version(name)
+        except md.PackageNotFoundError:
+            pass
+    return out
+
+
+def _gallery(study, cohort, labels, folder, max_gallery):
+    """Thumbnails of up to ``max_gallery`` samples, spread over the groups."""
+    from ..graph import SkeletonGraph
+    folder.mkdir(parents=True, exist_ok=True)
+    picked = []
+    groups = sorted(set(labels))
+    per = max(1, max_gallery // max(len(groups), 1))
+    for g in groups:
+        picked += [i for i in np.flatnonzero(labels == g)[:per]]
+    items = []
+    for i in picked:
+        s = cohort["sample"].iloc[i]
+        thumb = folder / f"{s}.png"
+        if not thumb.exists():
+            try:
+                graph = SkeletonGraph.read(_graph_file(study / "samples" / s))
+            except Exception:  # a sample without a readable graph gets no picture
+                continue
+            image = None
+            if graph.ndim == 2:
+                try:
+                    from ..io import read_image
+                    image = np.asarray(read_image(cohort["path"].iloc[i]).array)
+                except Exception:
+                    image = None
+            render_thumbnail(graph, thumb, image=image)
+        items.append((s, labels[i], f"figures/gallery/{s}.png"))
+    return items
+
+
+def _graph_file(folder):
+    for name in ("graph.npz", "graph.json"):
+        if (folder / name).exists():
+            return folder / name
+    raise FileNotFoundError(folder)
+
+
+def write_report(study, out=None, max_gallery=24, max_rows=200):
+    """Write ``report.html`` for an analysed and compared study folder.
+
+    Parameters
+    ----------
+    study : path
+        A folder written by ``cohort run``; ``cohort compare`` runs first
+        when ``comparison.json`` is missing.
+    out : path, optional
+        Where to write the page (default ``study/report.html``); its figures
+        go to ``figures/`` beside it.
+    max_gallery : int
+        Sample pictures shown (spread over the groups).
+    max_rows : int
+        Rows of the sample table shown (the rest is in ``cohort.csv``).
+    """
+    import pandas as pd
+    study = Path(study)
+    if not (study / "comparison.json").exists():
+        from ..cohort.compare import compare_cohort
+        compare_cohort(study)
+    comp = json.loads((study / "comparison.json").read_text())
+    cohort = pd.read_csv(study / "cohort.csv", dtype={"sample": str, "group": str})
+    by = comp.get("by", "group")
+    cohort = cohort[cohort["sample"].isin(comp["embedding"]["samples"])].reset_index(drop=True)
+    labels = cohort[by].astype(str).to_numpy()
+    run = json.loads((study / "run.json").read_text()) if (study / "run.json").exists() else {}
+    out = Path(out) if out else study / "report.html"
+    figdir = out.parent / "figures"
+    figdir.mkdir(parents=True, exist_ok=True)
+    if out.parent != study and (study / "figures").exists():
+        import shutil
+        for f in (study / "figures").glob("*.png"):
+            shutil.copy(f, figdir / f.name)
+    figs = comp.get("figures", {})
+    parts = [f"<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>"
+             f"<title>skelmorph study report</title><style>{_STYLE}</style></head><body>"]
+    groups = ", ".join(f"{_esc(g)} (n = {n})" for g, n in comp["groups"].items())
+    parts.append(f"<h1>Study report</h1><p class='small'>{comp['n_samples']} samples; groups "
+                 f"{groups}; compared by column <code>{_esc(by)}</code>.</p>")
+    # Headline findings.
+    parts.append("<h2>Headline findings</h2><ul>")
+    sig = comp["significant_measures"]
+    if sig:
+        items = []
+        for m in sig[:10]:
+            r = comp["measures"][m]
+            items.append(f"<li><b>{_esc(m)}</b>: {_esc(r['effect_name'])} "
+                         f"{_num('effect:' + m, r['effect_size'])}, q = {_num('q:' + m, r['q'])}"
+                         + "".join(f", {_esc(g)} mean {_fmt(v['mean'])}"
+                                   for g, v in r["groups"].items()) + "</li>")
+        parts.append(f"<li>{len(sig)} measure(s) differ between groups after "
+                     f"Benjamini–Hochberg correction at {comp['alpha']}:<ul>{''.join(items)}"
+                     + (f"<li>and {len(sig) - 10} more (measures.csv)</li>" if len(sig) > 10 else "")
+                     + "</ul></li>")
+    else:
+        parts.append(f"<li>No measure differs between groups after Benjamini–Hochberg "
+                     f"correction at {comp['alpha']}.</li>")
+    parts.append(f"<li>Cross-validated nearest-neighbour accuracy with the learned metric "
+                 f"{_num('cv_accuracy', comp['cv_accuracy'])} ± "
+                 f"{_num('cv_accuracy_sd', comp['cv_accuracy_sd'])}, without it "
+                 f"{_num('cv_accuracy_baseline', comp['cv_accuracy_baseline'])} ± "
+                 f"{_num('cv_accuracy_baseline_sd', comp['cv_accuracy_baseline_sd'])}; chance "
+                 f"{_num('chance_accuracy', comp['chance_accuracy'])}; permutation p = "
+                 f"{_num('permutation_p', comp['permutation_p'])}.</li>")
+    w = sorted(comp["weights"].items(), key=lambda kv: -kv[1])
+    parts.append("<li>Learned descriptor weights (maximising the "
+                 f"{_esc(comp['separation_index']['name'])} of the groups, "
+                 f"{_num('separation_index', comp['separation_index']['value'])}): "
+                 + ", ".join(f"{_esc(k)} {_num('weight:' + k, v, 2)}" for k, v in w) + ".</li></ul>")
+    # Caution.
+    parts.append(f"<p class='caution'><b>Caution.</b> {_esc(comp['caution'])} The comparison "
+                 "describes image structure in these samples only.</p>")
+    # Study table.
+    parts.append("<h2>The study</h2>")
+    show = cohort.head(max_rows)
+    rows = [[_esc(r["sample"]), _esc(r[by]), _esc(r.get("spacing", "")), _esc(r.get("unit", "")),
+             _fmt(r.get("total_length", float("nan"))), _fmt(r.get("cycle_rank", float("nan")))]
+            for _, r in show.iterrows()]
+    parts.append(_table(["sample", by, "voxel size (z y x)", "unit", "total length", "loops"], rows))
+    if len(cohort) > max_rows:
+        parts.append(f"<p class='small'>First {max_rows} of {len(cohort)} samples; all are in "
+                     "cohort.csv.</p>")
+    fails = comp.get("failures", [])
+    if fails:
+        parts.append("<h3>Failed samples</h3>" + _table(
+            ["sample", "message"], [[_esc(f.get("sample", "")), _esc(f.get("error", ""))]
+                                    for f in fails]))
+    else:
+        parts.append("<p class='small'>No sample failed.</p>")
+    # Figures.
+    parts.append("<h2>Measures by group</h2>")
+    if "measures" in figs:
+        parts.append(_img(figs["measures"], "measures by group",
+                          "Each point is a sample; bars are group medians; q is the FDR-adjusted "
+                          "p-value. Significant measures first."))
+    parts.append(_measure_table(comp))
+    if "profiles" in figs:
+        parts.append("<h2>Radial profiles</h2>" + _img(
+            figs["profiles"], "radial profiles by group",
+            "Median profile per group with the interquartile band, against distance from the "
+            "root."))
+    pim = _persistence_figure(study, cohort, labels, figdir)
+    if pim:
+        parts.append("<h2>Barcodes</h2>" + _img(
+            pim, "mean persistence images by group",
+            "Mean persistence image per group (elder-rule barcodes of each sample's first "
+            "spanning tree, one grid for the cohort)."))
+    if "distances" in figs:
+        parts.append("<h2>Distances between samples</h2>" + _img(
+            figs["distances"], "distance heat map with dendrogram",
+            "Combined distance (learned weights) in dendrogram order; the strip gives the "
+            f"groups. Adjusted Rand index of the clustering: "
+            f"{_num('ari:combined', comp['ari'].get('combined', float('nan')))}."))
+    if "embeddings" in figs:
+        parts.append("<h2>Embeddings</h2>" + _img(
+            figs["embeddings"], "embeddings before and after the learned metric",
+            "Classical scaling of the combined distance (left) and of the samples after the "
+            "metric learned by neighbourhood components analysis (right)."))
+    # Gallery.
+    items = _gallery(study, cohort, labels, figdir / "gallery", max_gallery)
+    if items:
+        parts.append("<h2>Samples</h2><div class='gallery'>" + "".join(
+            f"<figure><img src='{_esc(src)}' alt='{_esc(s)}'><figcaption>{_esc(s)} "
+            f"({_esc(g)})</figcaption></figure>" for s, g, src in items) + "</div>")
+        if len(cohort) > len(items):
+            parts.append(f"<p class='small'>{len(items)} of {len(cohort)} samples shown.</p>")
+    # Methods.
+    parts.append("<h2>Methods</h2>")
+    opts = run.get("options", {})
+    parts.append("<p>Each image was read with its voxel size, segmented, skeletonized "
+                 "(scikit-image), turned into an embedded graph with radii from exact distance "
+                 "transforms, and measured in physical units. Options given for the analysis: "
+                 + (", ".join(f"<code>{_esc(k)} = {_esc(v)}</code>" for k, v in opts.items())
+                    or "none (defaults)") + ".</p>")
+    parts.append(f"<p>Groups were compared by {_esc(next(iter(comp['measures'].values()))['test']) if comp['measures'] else 'rank tests'} "
+                 f"with Benjamini–Hochberg correction; classification by "
+                 f"{_esc(comp.get('classifier', 'nearest neighbours'))} in "
+                 f"{_esc(comp.get('cv_folds', ''))}-fold stratified cross-validation repeated "
+                 f"{_esc(comp.get('cv_repeats', ''))} times, with "
+                 f"{_esc(comp.get('n_permutations', ''))} label permutations.</p>")
+    parts.append(_table(["software", "version"], [[_esc(k), _esc(v)] for k, v in _versions().items()]))
+    parts.append("<h3>References</h3><ol class='small'>" + "".join(
+        f"<li>{_esc(r)}</li>" for r in REFERENCES) + "</ol>")
+    parts.append(f"<p class='small'>Written by skelmorph {__version__}.</p></body></html>")
+    with atomic_path(out) as tmp:
+        tmp.write_text("".join(parts), encoding="utf-8")
+    return out
+
+
+def _measure_table(comp, limit=30):
+    rows = []
+    ordered = sorted(comp["measures"].items(),
+                     key=lambda kv: kv[1]["q"] if np.isfinite(kv[1].get("q", np.nan)) else 9)
+    for name, r in ordered[:limit]:
+        rows.append([_esc(name), _fmt(r["p"]), _fmt(r["q"]), _fmt(r["effect_size"])]
+                    + [_fmt(v["mean"]) + " ± " + _fmt(v["sd"]) for v in r["groups"].values()])
+    groups = list(next(iter(comp["measures"].values()))["groups"]) if comp["measures"] else []
+    return _table(["measure", "p", "q", "effect size"] + [f"{g} mean ± SD" for g in groups], rows)
+
+
+def _persistence_figure(study, cohort, labels, figdir):
+    """Mean persistence image per group; returns the relative path or None."""
+    import pandas as pd
+
+    from ..descriptors.images import PersistenceImager
+    from .figures import new_axes, save
+    f = study / "barcodes.csv"
+    if not f.exists() or f.stat().st_size < 3:
+        return None
+    bars = pd.read_csv(f, dtype={"sample": str})
+    diagrams = [bars[(bars["sample"] == s) & (bars["tree"] == 0)][["birth", "death"]].to_numpy(float)
+                for s in cohort["sample"]]
+    if not any(len(d) for d in diagrams):
+        return None
+    pim = PersistenceImager(resolution=(24, 24)).fit(diagrams)
+    imgs = pim.transform(diagrams)
+    groups = sorted(set(labels))
+    fig, axes = new_axes(len(groups), 1, size=(3.0, 2.8))
+    unit = str(cohort["unit"].iloc[0]) if "unit" in cohort.columns else ""
+    vmax = max(imgs[labels == g].mean(0).max() for g in groups)
+    for ax, g in zip(axes.ravel(), groups):
+        mean = imgs[labels == g].mean(0).reshape(pim.shape_)
+        ax.imshow(mean, origin="lower", cmap="cividis", vmin=0, vmax=vmax, aspect="auto",
+                  extent=(pim.x_edges_[0], pim.x_edges_[-1], pim.y_edges_[0], pim.y_edges_[-1]))
+        ax.set_title(f"{g} (n = {int((labels == g).sum())})", fontsize=8)
+        ax.set_xlabel(f"birth ({unit})")
+        ax.set_ylabel(f"persistence ({unit})")
+    save(fig, figdir / "persistence_images.png")
+    return "figures/persistence_images.png"
+
+
+def write_sample_report(folder, result=None):
+    """A one-sample page in an ``analyze`` output folder (``report.html``)."""
+    from ..graph import SkeletonGraph
+    folder = Path(folder)
+    summary = json.loads((folder / "summary.json").read_text())
+    graph = result.graph if result is not None else SkeletonGraph.read(_graph_file(folder))
+    figdir = folder / "figures"
+    figdir.mkdir(exist_ok=True)
+    image = result.mask if (result is not None and graph.ndim == 2) else None
+    render_thumbnail(graph, figdir / "graph.png", image=image, size=(5, 5), dpi=90)
+    u = summary.get("unit", "")
+    keys = [k for k, v in summary.items() if isinstance(v, (int, float)) and not isinstance(v, bool)]
+    rows = [[_esc(k), _num(k, summary[k], 4)] for k in keys]
+    parts = [f"<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'><title>skelmorph "
+             f"sample report</title><style>{_STYLE}</style></head><body>",
+             f"<h1>Sample report</h1><p class='small'>{_esc(summary.get('source') or '')}; "
+             f"lengths in {_esc(u)}.</p>",
+             f"<p class='caution'><b>Caution.</b> {_esc(summary.get('caution', ''))}</p>",
+             "<h2>The network</h2>", _img("figures/graph.png", "centreline graph",
+                                          f"Centrelines coloured by radius ({_esc(u)})."),
+             "<h2>Measures</h2>", _table(["measure", "value"], rows)]
+    for name, cap in (("barcode.png", "Elder-rule barcode and persistence diagram."),
+                      ("profiles.png", "Radial profiles around the root.")):
+        if (folder / name).exists():
+            parts.append(_img(name, name, cap))
+    parts.append("<h2>Software</h2>" + _table(["software", "version"],
+                                              [[_esc(k), _esc(v)] for k, v in _versions().items()]))
+    parts.append("</body></html>")
+    with atomic_path(folder / "report.html") as tmp:
+        tmp.write_text("".join(parts), encoding="utf-8")
+    return folder / "report.html"

@@ -1,0 +1,142 @@
+"""The study report page and the figures it shows."""
+
+import json
+import re
+import shutil
+import subprocess
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+from test_cohort import make_study
+
+from skelmorph.cli import main
+from skelmorph.cohort.compare import compare_cohort
+from skelmorph.cohort.run import run_cohort
+from skelmorph.report.figures import (new_axes, plot_embedding, plot_group_values,
+                                      profile_bands)
+from skelmorph.report.html import write_report
+
+
+@pytest.fixture(scope="module")
+def study(tmp_path_factory):
+    tmp = tmp_path_factory.mktemp("report")
+    manifest = make_study(tmp / "data", per_group=3, size=40.0)
+    run_cohort(manifest, tmp / "study", {"n_radii": 30, "figures": False}, progress=False)
+    (tmp / "data" / "intact2.tif").write_bytes(b"not an image")  # one failure shows up
+    run_cohort(manifest, tmp / "study", {"n_radii": 30, "figures": False, "seed": 1},
+               progress=False)
+    compare_cohort(tmp / "study", n_repeats=2, n_permutations=10)
+    page = write_report(tmp / "study")
+    return tmp / "study", page
+
+
+def test_page_is_self_contained(study):
+    """No outside resources, no scripts, every figure present and decodable."""
+    from matplotlib.image import imread
+    folder, page = study
+    text = page.read_text()
+    assert "<script" not in text.lower()
+    assert not re.search(r"(https?:)?//[a-z0-9]", text, re.I), "external URL in the page"
+    sources = re.findall(r"src=['\"]([^'\"]+)['\"]", text)
+    assert len(sources) >= 6
+    for src in sources:
+        assert not src.startswith("/") and ".." not in src
+        img = imread(folder / src)
+        assert img.shape[0] > 0 and img.shape[1] > 0
+    for section in ("Headline findings", "Caution", "The study", "Measures by group",
+                    "Radial profiles", "Barcodes", "Distances between samples", "Embeddings",
+                    "Samples", "Methods", "References"):
+        assert section in text, section
+    # Headline first, then the caution, then the study.
+    assert text.index("Headline findings") < text.index("Caution") < text.index("The study")
+    assert "not a diagnosis" in text
+    assert "Failed samples" in text and "intact2" in text
+
+
+def test_headline_numbers_equal_comparison(study):
+    folder, page = study
+    comp = json.loads((folder / "comparison.json").read_text())
+    text = page.read_text()
+    shown = dict(re.findall(r'data-key="([^"]+)">([^<]+)<', text))
+    for key in ("cv_accuracy", "cv_accuracy_sd", "permutation_p", "cv_accuracy_baseline"):
+        assert float(shown[key]) == pytest.approx(comp[key], rel=5e-3, abs=1e-9)  # 3 digits shown
+    for name, w in comp["weights"].items():
+        assert float(shown[f"weight:{name}"]) == pytest.approx(w, abs=0.006)
+    for m in comp["significant_measures"][:10]:
+        assert float(shown[f"q:{m}"]) == pytest.approx(comp["measures"][m]["q"], rel=5e-3)
+
+
+def test_profile_bands_are_quantiles(study):
+    """Band limits equal the 25th/75th percentiles of the interpolated
+    curves, computed here independently (numpy)."""
+    folder, _ = study
+    prof = pd.read_csv(folder / "profiles.csv", dtype={"sample": str})
+    cohort = pd.read_csv(folder / "cohort.csv", dtype={"sample": str})
+    label_of = dict(zip(cohort["sample"], cohort["group"]))
+    bands = profile_bands(prof, label_of, "crossings", n_grid=50)
+    grid = np.linspace(0, prof["radius"].max(), 50)
+    for g, (x, lo, med, hi) in bands.items():
+        curves = []
+        for s in cohort["sample"][cohort["group"] == g]:
+            p = prof[prof["sample"] == s].sort_values("radius")
+            curves.append(np.interp(grid, p["radius"], p["crossings"]))
+        np.testing.assert_allclose(lo, np.percentile(curves, 25, axis=0))
+        np.testing.assert_allclose(hi, np.percentile(curves, 75, axis=0))
+        np.testing.assert_allclose(med, np.median(curves, axis=0))
+
+
+def test_plot_functions_return_what_they_draw():
+    fig, ax = new_axes(2)
+    vals = np.array([1.0, 2.0, 3.0, 10.0, np.nan])
+    drawn = plot_group_values(vals, ["a", "a", "b", "b", "b"], ax[0, 0], "m", q=0.01)
+    np.testing.assert_array_equal(drawn["a"], [1, 2])
+    np.testing.assert_array_equal(drawn["b"], [3, 10])
+    xy = np.arange(8.0).reshape(4, 2)
+    got = plot_embedding(xy, ["p", "q", "p", "q"], ax[0, 1], "t")
+    np.testing.assert_array_equal(got["p"], xy[[0, 2]])
+
+
+def test_cli_report_and_sample_page(tmp_path, study, capsys):
+    folder, _ = study
+    assert main(["cohort", "report", str(folder), "--out", str(tmp_path / "r" / "page.html"),
+                 "--gallery", "2"]) == 0
+    page = tmp_path / "r" / "page.html"
+    assert page.exists() and (tmp_path / "r" / "figures" / "measures.png").exists()
+    assert main(["phantom", "venation", "--out", str(tmp_path / "v.tif")]) == 0
+    assert main(["analyze", str(tmp_path / "v.tif"), "--out", str(tmp_path / "a"), "--quiet",
+                 "--report", "--radii", "20"]) == 0
+    text = (tmp_path / "a" / "report.html").read_text()
+    assert "not a diagnosis" in text and "figures/graph.png" in text
+    assert (tmp_path / "a" / "figures" / "graph.png").stat().st_size > 1000
+
+
+def _chromium():
+    for name in ("chromium", "chromium-browser", "google-chrome"):
+        path = shutil.which(name)
+        if path:
+            return path
+    return None
+
+
+@pytest.mark.skipif(_chromium() is None, reason="no chromium on this machine (.ci/run installs it)")
+def test_page_in_a_real_browser(study, tmp_path):
+    """Headless chromium loads the page with no console errors and saves a
+    full-page screenshot (kept in the test's temporary folder)."""
+    _, page = study
+    shot = tmp_path / "report.png"
+    proc = subprocess.run(
+        [_chromium(), "--headless", "--no-sandbox", "--disable-gpu", "--hide-scrollbars",
+         "--enable-logging=stderr", "--v=0", "--window-size=1200,6000",
+         f"--screenshot={shot}", page.resolve().as_uri()],
+        capture_output=True, text=True, timeout=120)
+    assert shot.exists() and shot.stat().st_size > 10000, proc.stderr[-2000:]
+    console = [line for line in proc.stderr.splitlines() if "CONSOLE" in line or "Uncaught" in line]
+    assert not console, console
+    from matplotlib.image import imread
+    img = imread(shot)
+    assert img.shape[0] >= 1000 and img[..., :3].std() > 0.01  # not a blank page
+    artifacts = Path(__file__).parent / "artifacts"
+    artifacts.mkdir(exist_ok=True)
+    shutil.copy(shot, artifacts / "report.png")
