@@ -1,8 +1,7 @@
 """Elder-rule persistence barcodes of rooted trees.
 
-Kanari L, Dłotko P, Scolamiero M, Levi R, Shillcock J, Hess K, Markram H
-(2018). A topological representation of branching neuronal morphologies.
-Neuroinformatics 16:3-13.  The elder rule itself: Edelsbrunner H, Harer J
+Kanari L et al. (2018). A topological representation of branching neuronal
+morphologies. Neuroinformatics 16:3-13.  The elder rule itself: Edelsbrunner H, Harer J
 (2010), Computational Topology, AMS.
 """
 

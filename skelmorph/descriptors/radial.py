@@ -197,8 +197,8 @@ def radial_profiles(obj, root=None, radii=None, n_radii=200, weights=None):
 
     References
     ----------
-    Sholl DA (1953) J Anat 87:387-406.  Khalil R, Kallel S, Farhat A, Dlotko P
-    (2022) PLoS Comput Biol 18:e1010229.
+    Sholl DA (1953) J Anat 87:387-406.  Khalil R et al. (2022) PLoS Comput
+    Biol 18:e1010229.
     """
     import pandas as pd
 
