@@ -133,7 +133,7 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
     )
     timings["measure"] = time.perf_counter() - t0
     bar.update(note="measured")
-    extra = _field_measures(sets, measures, graph, mask, spacing, unit, region, thickness_map,
+    extra = _field_measures(sets, graph, mask, spacing, unit, region, thickness_map,
                             timings, bar)
     result = AnalysisResult(graph=graph, summary=summary, mask=mask, timings=timings)
     summary.update(extra.pop("summary"))
@@ -206,7 +206,7 @@ def _check_sets(sets, ndim):
         raise InputError(f"venation measures need a 2D image; this one is {ndim}D")
 
 
-def _field_measures(sets, measures, graph, mask, spacing, unit, region, thickness_map, timings, bar):
+def _field_measures(sets, graph, mask, spacing, unit, region, thickness_map, timings, bar):
     """Bone, vessel and venation measure sets, as asked."""
     out = {"summary": {}, "branch_columns": {}, "bifurcations": None, "maps": {}}
     if not sets:

@@ -9,7 +9,6 @@ research findings about image structure, not diagnoses.
 
 from __future__ import annotations
 
-import json
 import warnings
 from pathlib import Path
 

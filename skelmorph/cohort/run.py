@@ -26,7 +26,7 @@ import numpy as np
 from .._version import __version__
 from ..errors import SkelmorphError
 from ..io import atomic_path, write_csv, write_json
-from .manifest import Sample, read_manifest
+from .manifest import read_manifest
 
 __all__ = ["run_cohort", "load_options", "ANALYZE_OPTIONS", "RunReport", "collect_tables"]
 

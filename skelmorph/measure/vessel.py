@@ -37,7 +37,6 @@ def resample_polylines(points, offsets, step):
     pts = np.asarray(points, float)
     off = np.asarray(offsets)
     E = len(off) - 1
-    eid = edge_index(off)
     steps = np.zeros(len(pts))
     steps[1:] = np.linalg.norm(np.diff(pts, axis=0), axis=1)
     steps[off[:-1]] = 1.0  # the gap before each polyline
