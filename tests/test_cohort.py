@@ -270,7 +270,7 @@ def test_nca_weights_and_learned_weights():
 
 def test_cohort_cli(tmp_path, capsys):
     manifest = make_study(tmp_path / "data", per_group=3, size=36.0)
-    (tmp_path / "o.toml").write_text("n_radii = 10\nfigures = false\n")
+    (tmp_path / "o.toml").write_text("n_radii = 10\nfigures = false\npaths = 3\n")
     assert main(["cohort", "run", str(manifest), "--out", str(tmp_path / "s"), "--quiet",
                  "--options", str(tmp_path / "o.toml"), "--workers", "2"]) == 0
     assert "6 analysed, 0 reused, 0 failed" in capsys.readouterr().out
@@ -278,6 +278,9 @@ def test_cohort_cli(tmp_path, capsys):
                  "--repeats", "2"]) == 0
     out = capsys.readouterr().out
     assert "6 samples in groups eroded (n=3), intact (n=3)" in out and "not a diagnosis" in out
+    # Path counts plug in as one more descriptor with its own distance.
+    comp = json.loads((tmp_path / "s" / "comparison.json").read_text())
+    assert "paths" in comp["weights"] and "paths_3_edges" in comp["measures"]
     (tmp_path / "bad.csv").write_text("sample,path\nx,nope.tif\ny,nope2.tif\n")
     assert main(["cohort", "run", str(tmp_path / "bad.csv"), "--out", str(tmp_path / "b")]) == 2
     err = capsys.readouterr().err
