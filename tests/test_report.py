@@ -87,6 +87,20 @@ def test_profile_bands_are_quantiles(study):
         np.testing.assert_allclose(med, np.median(curves, axis=0))
 
 
+def test_thumbnail_colour_scale(tmp_path):
+    """The gallery picture covers the graph's radius range (pyvista when it can
+    render here, matplotlib otherwise) and is a readable PNG."""
+    from matplotlib.image import imread
+
+    import skelmorph as sm
+    from skelmorph.report.html import render_thumbnail
+    ph = sm.phantoms.make("lattice")
+    g = sm.skeleton_graph(ph.mask, ph.spacing)
+    lo, hi = render_thumbnail(g, tmp_path / "t.png")
+    assert (lo, hi) == (g.point_radius.min(), g.point_radius.max())
+    assert imread(tmp_path / "t.png").shape[0] > 100
+
+
 def test_plot_functions_return_what_they_draw():
     fig, ax = new_axes(2)
     vals = np.array([1.0, 2.0, 3.0, 10.0, np.nan])
@@ -137,6 +151,20 @@ def test_page_in_a_real_browser(study, tmp_path):
     from matplotlib.image import imread
     img = imread(shot)
     assert img.shape[0] >= 1000 and img[..., :3].std() > 0.01  # not a blank page
+    # Every figure decodes in the browser: a copy of the page beside it, with a
+    # script added after load that records each image's natural size in the DOM.
+    probe = page.with_name("browser-check.html")
+    script = ("<script>window.addEventListener('load',function(){var r=[];"
+              "for(const i of document.images){r.push(i.naturalWidth+'x'+i.naturalHeight)}"
+              "document.body.setAttribute('data-sizes',r.join(' '))})</script>")
+    probe.write_text(page.read_text().replace("</body>", script + "</body>"))
+    dom = subprocess.run([_chromium(), "--headless", "--no-sandbox", "--disable-gpu",
+                          "--virtual-time-budget=10000", "--dump-dom", probe.resolve().as_uri()],
+                         capture_output=True, text=True, timeout=120).stdout
+    probe.unlink()
+    sizes = re.search(r'data-sizes="([^"]*)"', dom).group(1).split()
+    assert len(sizes) == len(re.findall(r"<img ", page.read_text()))
+    assert all(int(w) > 0 and int(h) > 0 for w, h in (x.split("x") for x in sizes)), sizes
     artifacts = Path(__file__).parent / "artifacts"
     artifacts.mkdir(exist_ok=True)
     shutil.copy(shot, artifacts / "report.png")

@@ -100,13 +100,77 @@ def _table(header, rows):
     return f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
 
 
+_PYVISTA_OK = None
+_PROBE = """
+import pyvista as pv
+p = pv.Plotter(off_screen=True, window_size=(64, 64))
+p.add_mesh(pv.Sphere())
+p.screenshot(None, return_img=True)
+"""
+
+
+def _pyvista_works():
+    """Whether pyvista can render off-screen here, probed once in a child
+    process (a missing OpenGL stack can crash the renderer outright)."""
+    global _PYVISTA_OK
+    if _PYVISTA_OK is None:
+        import importlib.util
+        import subprocess
+        import sys
+        if importlib.util.find_spec("pyvista") is None:
+            _PYVISTA_OK = False
+        else:
+            try:
+                res = subprocess.run([sys.executable, "-c", _PROBE], capture_output=True,
+                                     timeout=60)
+                _PYVISTA_OK = res.returncode == 0
+            except (OSError, subprocess.TimeoutExpired):
+                _PYVISTA_OK = False
+    return _PYVISTA_OK
+
+
+def _render_pyvista(graph, path, px=300):
+    """Off-screen 3D view of the centrelines as tubes coloured by radius (pyvista)."""
+    import pyvista as pv
+    import vtk
+    vtk.vtkObject.GlobalWarningDisplayOff()
+    if hasattr(vtk, "vtkLogger"):  # keep the renderer's display messages off the terminal
+        vtk.vtkLogger.SetStderrVerbosity(vtk.vtkLogger.VERBOSITY_OFF)
+    poly = graph.to_vtk()
+    u = graph.unit
+    lo, hi = float(graph.point_radius.min()), float(graph.point_radius.max())
+    p = pv.Plotter(off_screen=True, window_size=(px, px))
+    p.set_background("white")
+    tube = poly.tube(radius=max(0.3 * float(np.median(graph.point_radius)), 1e-6))
+    p.add_mesh(tube, scalars="radius", cmap="cividis", clim=(lo, hi if hi > lo else lo + 1),
+               scalar_bar_args={"title": f"radius ({u})", "color": "black", "vertical": False,
+                                "position_x": 0.2, "position_y": 0.02, "width": 0.6,
+                                "height": 0.07, "title_font_size": 12, "label_font_size": 10,
+                                "n_labels": 3, "fmt": "%.2g"})
+    p.show_bounds(xtitle=f"x ({u})", ytitle=f"y ({u})", ztitle=f"z ({u})", color="black",
+                  font_size=8, n_xlabels=2, n_ylabels=2, n_zlabels=2, fmt="%.0f")
+    p.camera_position = "iso"
+    path = Path(path)
+    with atomic_path(path) as tmp:
+        p.screenshot(str(tmp) + ".png")
+        Path(str(tmp) + ".png").replace(tmp)
+    p.close()
+    return lo, hi
+
+
 def render_thumbnail(graph, path, image=None, size=(3.2, 3.2), dpi=70):
     """A small picture of a skeleton graph coloured by radius.
 
-    3D: the centrelines in a perspective view (matplotlib, off-screen); 2D:
-    the graph drawn over the image.  Returns the per-branch colours' data
-    range (radius min, max) drawn.
+    3D: the centrelines as tubes rendered off-screen with pyvista when it
+    can render on this machine, else a matplotlib perspective view; 2D: the
+    graph drawn over the image.  Returns the radius range (min, max) of the
+    colour scale.
     """
+    if graph.ndim == 3 and graph.n_edges and _pyvista_works():
+        try:
+            return _render_pyvista(graph, path, px=int(size[0] * dpi * 1.3))
+        except Exception:  # fall back to matplotlib below
+            pass
     import matplotlib
     matplotlib.use("Agg", force=False)
     import matplotlib.pyplot as plt
@@ -122,7 +186,8 @@ def render_thumbnail(graph, path, image=None, size=(3.2, 3.2), dpi=70):
         vals.extend(0.5 * (q[:-1] + q[1:]))
     segs = np.array(segs).reshape(-1, 2, graph.ndim)
     vals = np.array(vals)
-    lo, hi = (float(vals.min()), float(vals.max())) if len(vals) else (0.0, 1.0)
+    r_all = graph.point_radius
+    lo, hi = (float(r_all.min()), float(r_all.max())) if len(r_all) else (0.0, 1.0)
     u = graph.unit
     if graph.ndim == 3:
         from mpl_toolkits.mplot3d.art3d import Line3DCollection
