@@ -305,20 +305,33 @@ def radial_profiles(obj, root=None, radii=None, n_radii=200, weights=None):
     k1 = np.searchsorted(R, m_out, "left")
     k1 = np.where(np.isfinite(m_in), k1, k0)
     n_act = np.maximum(k1 - k0, 0)
-    segs = np.repeat(np.arange(len(a)), n_act)
-    ks = np.repeat(k0, n_act) + (np.arange(n_act.sum()) - np.repeat(np.cumsum(n_act) - n_act, n_act))
-    first = inner_first[segs]
-    u_pt = np.where(first, a[segs], b[segs])
-    v_pt = np.where(first, b[segs], a[segs])
-    wu = s.pts[u_pt] - c
-    du = s.pts[v_pt] - s.pts[u_pt]
+    # Per segment, oriented from its inner end u: everything a cut needs is a
+    # scalar of the exit parameter t, so per (segment, radius) pair only 1-D
+    # gathers and arithmetic remain.
+    act = np.flatnonzero(n_act)
+    first_a = inner_first[act]
+    u_s = np.where(first_a, a[act], b[act])
+    v_s = np.where(first_a, b[act], a[act])
+    du_s = s.pts[v_s] - s.pts[u_s]
+    wu_s = s.pts[u_s] - c
+    A_s = np.einsum("ij,ij->i", du_s, du_s)
+    B_s = np.einsum("ij,ij->i", wu_s, du_s)
+    W_s = np.einsum("ij,ij->i", wu_s, wu_s)
+    side_s = np.where(first_a, 0, 1)
+    anchor_s = anchor_of[act, side_s]
+    q_s = s.pts[u_s] - s.pts[anchor_s]
+    Q_s = np.einsum("ij,ij->i", q_s, q_s)
+    QD_s = np.einsum("ij,ij->i", q_s, du_s)
+    arc_s = arc_of[act, side_s]
+    ru_s, dr_s = s.rad[u_s], s.rad[v_s] - s.rad[u_s]
+    anc_s = anc[u_s] + 1
+    na = n_act[act]
+    j = np.repeat(np.arange(len(act)), na)
+    ks = np.repeat(k0[act], na) + (np.arange(na.sum()) - np.repeat(np.cumsum(na) - na, na))
     r = R[ks]
-    A = np.einsum("ij,ij->i", du, du)
-    B = np.einsum("ij,ij->i", wu, du)
-    C = np.einsum("ij,ij->i", wu, wu) - r * r
-    disc = np.maximum(B * B - A * C, 0.0)
+    A, B = A_s[j], B_s[j]
+    disc = np.maximum(B * B - A * (W_s[j] - r * r), 0.0)
     t = np.clip((-B + np.sqrt(disc)) / np.where(A > 0, A, 1), 0.0, 1.0)
-    x_cut = s.pts[u_pt] + t[:, None] * du
     seg_len = np.sqrt(A)
     nk = np.bincount(ks, minlength=K).astype(float)
     cols["cut_ends"] = nk
@@ -326,28 +339,28 @@ def radial_profiles(obj, root=None, radii=None, n_radii=200, weights=None):
     # Leaf index.
     leaves = cols["tips"] + nk
     n_crit = 1 + bp_nonroot + leaves
-    s_sum = tip_anc[cols["tips"].astype(int)] + np.bincount(ks, anc[u_pt] + 1, K)
+    s_sum = tip_anc[cols["tips"].astype(int)] + np.bincount(ks, anc_s[j], K)
     cols["leaf_index"] = s_sum / n_crit
-    # Tortuosity: complete branches plus the pieces from an anchor to a cut.
-    side = np.where(first, 0, 1)
-    anchor = anchor_of[segs, side]
-    piece_len = arc_of[segs, side] + t * seg_len
-    piece_chord = np.linalg.norm(x_cut - s.pts[anchor], axis=1)
+    # Tortuosity: complete branches plus the pieces from an anchor to a cut;
+    # |cut - anchor|^2 = |q|^2 + 2 t q.du + t^2 |du|^2.
+    piece_len = arc_s[j] + t * seg_len
+    piece_chord = np.sqrt(np.maximum(Q_s[j] + 2 * t * QD_s[j] + t * t * A, 0.0))
     pok = piece_chord > 1e-12
     n_br = nb_full + np.bincount(ks[pok], minlength=K)
     tot = ratio[nb_full] + np.bincount(ks[pok], piece_len[pok] / piece_chord[pok], K)
-    # Flux and taper at the cut ends.
-    # Angles near 0 or pi by Kahan's formula 2 atan2(|a - b|, |a + b|) on unit
-    # vectors, where arccos of the cosine loses half the digits.
-    normal = x_cut - c
-    nu = du / np.maximum(seg_len, 1e-300)[:, None]
-    nn = normal / np.maximum(np.linalg.norm(normal, axis=1), 1e-300)[:, None]
-    cosang = np.clip(np.einsum("ij,ij->i", nu, nn), -1.0, 1.0)
+    # Flux: the outward normal at the cut is (wu + t du) / r, so the cosine is
+    # (B + t A) / (|du| r).  Angles near 0 or pi use Kahan's formula
+    # 2 atan2(|a - b|, |a + b|) on unit vectors, where arccos loses half the digits.
+    cosang = np.clip((B + t * A) / np.maximum(seg_len * r, 1e-300), -1.0, 1.0)
     angle = np.arccos(cosang)
     near = np.flatnonzero(np.abs(cosang) > 0.99)
-    angle[near] = 2 * np.arctan2(np.linalg.norm(nu[near] - nn[near], axis=1),
-                                 np.linalg.norm(nu[near] + nn[near], axis=1))
-    r_cut = s.rad[u_pt] + t * (s.rad[v_pt] - s.rad[u_pt])
+    if len(near):
+        dn = du_s[j[near]]
+        nu = dn / np.maximum(seg_len[near], 1e-300)[:, None]
+        normal = wu_s[j[near]] + t[near, None] * dn
+        nn = normal / np.maximum(np.linalg.norm(normal, axis=1), 1e-300)[:, None]
+        angle[near] = 2 * np.arctan2(np.linalg.norm(nu - nn, axis=1), np.linalg.norm(nu + nn, axis=1))
+    r_cut = ru_s[j] + t * dr_s[j]
     with np.errstate(invalid="ignore", divide="ignore"):
         cols["tortuosity"] = np.where(n_br > 0, tot / n_br, np.nan)
         cols["flux_cosine"] = np.bincount(ks, cosang, K) / nk
