@@ -10,7 +10,8 @@ from __future__ import annotations
 import numpy as np
 from scipy import ndimage as ndi
 
-__all__ = ["segment_lengths", "polyline_lengths", "smooth_polylines", "edge_index"]
+__all__ = ["segment_lengths", "polyline_lengths", "cumulative_arclength", "smooth_polylines",
+           "edge_index"]
 
 
 def edge_index(offsets):
@@ -31,19 +32,29 @@ def segment_lengths(points, offsets):
     return steps[keep[: len(steps)]] if len(steps) else steps
 
 
-def polyline_lengths(points, offsets):
-    """Length of every polyline (sum of its segment lengths), shape (E,)."""
+def cumulative_arclength(points, offsets, gap=0.0):
+    """Arc length at every point along one axis for all polylines, shape (K,).
+
+    Within a polyline the value grows by its segment lengths; ``gap`` is
+    added before each polyline (a positive gap keeps the polylines' ranges
+    apart, e.g. for one ``np.interp`` over all of them).
+    """
     points = np.asarray(points, dtype=float)
     offsets = np.asarray(offsets)
-    n_edges = len(offsets) - 1
-    if n_edges == 0:
-        return np.zeros(0)
     steps = np.zeros(len(points))
     if len(points) > 1:
         steps[1:] = np.linalg.norm(np.diff(points, axis=0), axis=1)
-    steps[offsets[:-1]] = 0.0  # a polyline's first point has no incoming segment
-    csum = np.concatenate([[0.0], np.cumsum(steps)])
-    return csum[offsets[1:]] - csum[offsets[:-1]]
+    steps[offsets[:-1][offsets[:-1] < len(points)]] = gap  # no segment into a polyline's start
+    return np.cumsum(steps)
+
+
+def polyline_lengths(points, offsets):
+    """Length of every polyline (sum of its segment lengths), shape (E,)."""
+    offsets = np.asarray(offsets)
+    if len(offsets) < 2:
+        return np.zeros(0)
+    s = cumulative_arclength(points, offsets)
+    return s[offsets[1:] - 1] - s[offsets[:-1]]
 
 
 def smooth_polylines(points, offsets, sigma, closed=None):

@@ -301,14 +301,6 @@ def _chain_parents(counts, anchors, base):
     return parents, last
 
 
-def _cumulative_arclength(graph):
-    steps = np.zeros(len(graph.points))
-    if len(steps) > 1:
-        steps[1:] = np.linalg.norm(np.diff(graph.points, axis=0), axis=1)
-    steps[graph.offsets[:-1]] = 0.0
-    return np.cumsum(steps)
-
-
 def _build_tree(graph, root, nodes, parent_node, parent_edge, cut, method, dist=None):
     """Point-level Tree from a node-level spanning tree of one component."""
     n = graph.n_nodes
@@ -347,7 +339,8 @@ def _build_tree(graph, root, nodes, parent_node, parent_edge, cut, method, dist=
     out = np.flatnonzero(inside[u] & ~in_tree)
     n_cut = 0
     if cut == "split" and len(out):
-        s = _cumulative_arclength(graph)
+        from .polyline import cumulative_arclength
+        s = cumulative_arclength(graph.points, graph.offsets)
         length = s[off[out + 1] - 1] - s[off[out]]
         if dist is not None:
             t = np.clip(0.5 * (dist[v[out]] + length - dist[u[out]]), 0.0, length)

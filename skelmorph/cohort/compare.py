@@ -16,6 +16,7 @@ import numpy as np
 
 from ..errors import SkelmorphError
 from ..io import write_csv, write_json
+from ..descriptors.barcode import diagrams_from_table
 from .stats import benjamini_hochberg, compare_groups
 
 __all__ = ["compare_cohort", "load_study", "descriptor_distances", "learn_weights",
@@ -73,23 +74,9 @@ def scalar_measures(cohort):
 # ------------------------------------------------------------- descriptors
 def _profile_grid(profiles, samples, column, n_grid=64):
     """Each sample's profile column on a common radius grid, (n, n_grid), and the grid."""
-    rmax = float(profiles["radius"].max())
-    grid = np.linspace(0.0, rmax, n_grid)
-    out = np.zeros((len(samples), n_grid))
-    for i, s in enumerate(samples):
-        p = profiles[profiles["sample"] == s].sort_values("radius")
-        if len(p):
-            out[i] = np.interp(grid, p["radius"].to_numpy(float),
-                               np.nan_to_num(p[column].to_numpy(float)))
-    return out, grid
-
-
-def _sample_bars(barcodes, samples):
-    out = []
-    for s in samples:
-        b = barcodes[(barcodes["sample"] == s) & (barcodes["tree"] == 0)]
-        out.append(b[["birth", "death"]].to_numpy(float))
-    return out
+    from ..descriptors.radial import profiles_on_grid
+    grid = np.linspace(0.0, float(profiles["radius"].max()), n_grid)
+    return profiles_on_grid(profiles, samples, column, grid), grid
 
 
 def _zscore(x):
@@ -130,7 +117,7 @@ def descriptor_distances(study):
     if bars is not None and len(bars):
         from ..descriptors.distances import wasserstein_distance
         from ..descriptors.images import PersistenceImager
-        diagrams = _sample_bars(bars, samples)
+        diagrams = diagrams_from_table(bars, samples)
         n = len(samples)
         d = np.zeros((n, n))
         for i in range(n):
@@ -256,7 +243,7 @@ def feature_matrix(study):
     bars = study["barcodes"]
     if bars is not None and len(bars):
         from ..descriptors.images import PersistenceImager
-        diagrams = _sample_bars(bars, samples)
+        diagrams = diagrams_from_table(bars, samples)
         if any(len(x) for x in diagrams):
             pim = PersistenceImager(resolution=(6, 6))
             blocks.append(pim.fit_transform(diagrams))

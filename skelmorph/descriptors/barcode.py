@@ -12,7 +12,8 @@ import numpy as np
 from ..errors import InputError
 from ..tree import Tree
 
-__all__ = ["barcode", "filtration_values", "FILTRATIONS", "barcode_summary"]
+__all__ = ["barcode", "filtration_values", "FILTRATIONS", "barcode_summary",
+           "diagrams_from_table"]
 
 FILTRATIONS = ("radial", "path", "axis")
 
@@ -158,3 +159,15 @@ def graph_barcodes(graph, root="thickest", tree="shortest", n_trees=1, filtratio
         if len(rows) > 1:
             summary[name + "_sd"] = float(np.std(vals, ddof=1))
     return trees, bars, summary
+
+
+def diagrams_from_table(table, samples, tree=0):
+    """Barcodes of one spanning tree per sample from a long table (pandas) with
+    ``sample``, ``tree``, ``birth``, ``death``; an empty (0, 2) array for a
+    sample without bars."""
+    out = {s: np.zeros((0, 2)) for s in samples}
+    sel = table[table["tree"] == tree]
+    for s, b in sel.groupby("sample", sort=False):
+        if s in out:
+            out[s] = b[["birth", "death"]].to_numpy(float)
+    return [out[s] for s in samples]

@@ -34,7 +34,8 @@ import numpy as np
 from ..errors import InputError
 from ..tree import Tree
 
-__all__ = ["radial_profiles", "profile_distance", "profile_summary", "PROFILE_COLUMNS"]
+__all__ = ["radial_profiles", "profile_distance", "profile_summary", "profiles_on_grid",
+           "PROFILE_COLUMNS"]
 
 PROFILE_COLUMNS = ("radius", "crossings", "cut_ends", "total_length", "branch_points", "tips",
                    "branching_pattern", "leaf_index", "tortuosity", "flux_angle", "flux_cosine",
@@ -444,3 +445,21 @@ def profile_distance(a, b, column, p=1, normalise=False, n_grid=512):
     diff = np.abs(np.interp(grid, ra, ya) - np.interp(grid, rb, yb)) ** p
     from scipy.integrate import trapezoid
     return float(trapezoid(diff, grid) ** (1.0 / p))
+
+
+def profiles_on_grid(profiles, samples, column, grid):
+    """One profile column per sample on a common radius grid, (n_samples, len(grid)).
+
+    ``profiles`` is a long table (pandas) with ``sample``, ``radius`` and the
+    column; values are interpolated linearly, NaN counts as 0, and a sample
+    without rows stays 0.
+    """
+    grid = np.asarray(grid, float)
+    out = np.zeros((len(samples), len(grid)))
+    row = {s: i for i, s in enumerate(samples)}
+    for s, p in profiles.groupby("sample", sort=False):
+        if s in row:
+            p = p.sort_values("radius")
+            out[row[s]] = np.interp(grid, p["radius"].to_numpy(float),
+                                    np.nan_to_num(p[column].to_numpy(float)))
+    return out

@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..errors import InputError
-from ..polyline import edge_index
+from ..polyline import cumulative_arclength, edge_index
 
 __all__ = ["tortuosity_indices", "resample_polylines", "murray_exponent", "bifurcations",
            "vessel_measures"]
@@ -37,10 +37,7 @@ def resample_polylines(points, offsets, step):
     pts = np.asarray(points, float)
     off = np.asarray(offsets)
     E = len(off) - 1
-    steps = np.zeros(len(pts))
-    steps[1:] = np.linalg.norm(np.diff(pts, axis=0), axis=1)
-    steps[off[:-1]] = 1.0  # the gap before each polyline
-    s = np.cumsum(steps)
+    s = cumulative_arclength(pts, off, gap=1.0)
     start, stop = s[off[:-1]], s[off[1:] - 1]
     n = np.maximum(np.round((stop - start) / step).astype(int), 1)
     new_off = np.concatenate([[0], np.cumsum(n + 1)])

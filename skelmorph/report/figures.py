@@ -134,18 +134,14 @@ def profile_bands(profiles, label_of, column, n_grid=100):
 
     Returns {group: (grid, q25, median, q75)}.
     """
-    rmax = float(profiles["radius"].max())
-    grid = np.linspace(0.0, rmax, n_grid)
-    curves = {}
-    for s, p in profiles.groupby("sample"):
-        if s not in label_of:
-            continue
-        p = p.sort_values("radius")
-        y = np.interp(grid, p["radius"].to_numpy(float), np.nan_to_num(p[column].to_numpy(float)))
-        curves.setdefault(str(label_of[s]), []).append(y)
+    from ..descriptors.radial import profiles_on_grid
+    grid = np.linspace(0.0, float(profiles["radius"].max()), n_grid)
+    samples = [s for s in profiles["sample"].unique() if s in label_of]
+    curves = profiles_on_grid(profiles, samples, column, grid)
+    groups = np.array([str(label_of[s]) for s in samples])
     out = {}
-    for g, ys in sorted(curves.items()):
-        ys = np.array(ys)
+    for g in sorted(set(groups)):
+        ys = curves[groups == g]
         out[g] = (grid, np.percentile(ys, 25, axis=0), np.median(ys, axis=0),
                   np.percentile(ys, 75, axis=0))
     return out

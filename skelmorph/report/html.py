@@ -449,9 +449,8 @@ def _persistence_figure(study, cohort, labels, figdir):
     f = study / "barcodes.csv"
     if not f.exists() or f.stat().st_size < 3:
         return None
-    bars = pd.read_csv(f, dtype={"sample": str})
-    diagrams = [bars[(bars["sample"] == s) & (bars["tree"] == 0)][["birth", "death"]].to_numpy(float)
-                for s in cohort["sample"]]
+    from ..descriptors.barcode import diagrams_from_table
+    diagrams = diagrams_from_table(pd.read_csv(f, dtype={"sample": str}), list(cohort["sample"]))
     if not any(len(d) for d in diagrams):
         return None
     pim = PersistenceImager(resolution=(24, 24)).fit(diagrams)
