@@ -7,6 +7,7 @@ voxel size (``spacing``) is a tuple in the same order, in physical units.
 from __future__ import annotations
 
 import contextlib
+import csv
 import json
 import os
 import re
@@ -484,10 +485,12 @@ def write_csv(path, columns):
         else:
             text_cols.append(c.astype(str).astype(object))
     with atomic_write(path, "w", encoding="utf-8", newline="") as fh:
-        fh.write(",".join(names) + "\n")
+        # The csv module quotes fields that hold commas or quotes (messages, paths).
+        writer = csv.writer(fh, lineterminator="\n")
+        writer.writerow(names)
         if n:
             rows = np.stack(text_cols, axis=1) if text_cols else np.empty((n, 0), object)
-            fh.write("\n".join(",".join(r) for r in rows) + "\n")
+            writer.writerows(rows.tolist())
 
 
 def write_tiff(path, array, spacing, unit="um"):

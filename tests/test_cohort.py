@@ -285,3 +285,15 @@ def test_cohort_cli(tmp_path, capsys):
     assert main(["cohort", "run", str(tmp_path / "bad.csv"), "--out", str(tmp_path / "b")]) == 2
     err = capsys.readouterr().err
     assert "2 problem(s)" in err and "nope2.tif" in err
+
+
+def test_failure_messages_with_commas_stay_one_field(tmp_path):
+    """failures.csv is read back by the csv module (general-purpose reference):
+    a message with commas and quotes is one field."""
+    import csv
+
+    from skelmorph.io import write_csv
+    write_csv(tmp_path / "f.csv", {"sample": ["a"], "error": ['bad, very "bad", file']})
+    with open(tmp_path / "f.csv", newline="") as fh:
+        rows = list(csv.DictReader(fh))
+    assert rows == [{"sample": "a", "error": 'bad, very "bad", file'}]
