@@ -131,6 +131,8 @@ def test_ridge_thickness_equals_brute_force(seed, spacing):
 
 
 def test_mil_plates_vs_lattice():
+    """Parallel plates: MIL is infinite along the plates, so DA is large
+    (methods dossier 1.6 oracle: test DA > 10 on a finite sample)."""
     ph = sm.phantoms.make("plates")
     da, axes = mil_fabric(ph.mask, ph.spacing)
     assert da > 10 and len(axes) == 3
