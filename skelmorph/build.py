@@ -45,7 +45,7 @@ from .graph import SkeletonGraph
 from .io import check_image_array, normalise_unit, validate_spacing
 from .polyline import polyline_lengths, smooth_polylines
 from .segment import as_bool_mask, check_mask, count_cavities, is_binary
-from .skeleton import ANISOTROPY_LIMIT, resample_isotropic, skeletonize
+from .skeleton import resample_isotropic, skeletonize
 
 __all__ = ["skeleton_graph", "graph_from_skeleton", "centreline_radius"]
 
@@ -390,7 +390,7 @@ class _Work:
         return polyline_lengths(np.concatenate(self.pts), offsets)
 
 
-def _raw_graph(skel, mask, spacing, radius_method, timings):
+def _raw_graph(skel, mask, spacing, radius_method, timings, dist_sq=None):
     """Nodes and point-ordered edges straight from the centreline voxels."""
     sp = np.asarray(spacing, float)
     with _timed(timings, "graph"):
@@ -399,7 +399,10 @@ def _raw_graph(skel, mask, spacing, radius_method, timings):
         links = voxel_links(coords, skel.shape)
         deg = np.bincount(links.ravel(), minlength=n)
     with _timed(timings, "radii"):
-        vox_r = centreline_radius(mask, coords, spacing, method=radius_method)
+        if dist_sq is not None:
+            vox_r = np.sqrt(dist_sq[tuple(coords.T)].astype(np.float64))
+        else:
+            vox_r = centreline_radius(mask, coords, spacing, method=radius_method)
     with _timed(timings, "graph"):
         clique = small_cycle_voxels(coords, links, skel.shape)
         is_node = (deg != 2) | clique
@@ -554,7 +557,7 @@ def _components(n, links):
 # ----------------------------------------------------------------------------- clean-up
 
 def _merge_close_junctions(w):
-    """Contract edges between two junctions closer than the sum of their radii.
+    """Contract short edges between two junctions closer than the sum of their radii.
 
     Contracting an edge keeps E - V + C, so loops are never created or lost.
     """
@@ -563,7 +566,13 @@ def _merge_close_junctions(w):
     if len(u) == 0:
         return False
     dist = np.linalg.norm(w.node_pos[u] - w.node_pos[v], axis=1)
-    close = (u != v) & (deg[u] >= 3) & (deg[v] >= 3) & (dist < w.node_r[u] + w.node_r[v])
+    # Close: within the sum of the radii, joined by a branch no longer than
+    # the thicker junction's radius.  The second condition bounds the
+    # straight joins that contraction makes by the junction's own size, so
+    # thick structures (radius large against their mesh) keep their branches.
+    reach = np.maximum(w.node_r[u], w.node_r[v])
+    close = ((u != v) & (deg[u] >= 3) & (deg[v] >= 3) & (dist < w.node_r[u] + w.node_r[v])
+             & (w.raw_lengths() <= reach))
     if not close.any():
         return False
     n = len(w.node_pos)
@@ -803,14 +812,20 @@ def _finish(w, spacing, unit, shape, smoothing, meta):
 
 def graph_from_skeleton(skel, mask, spacing=None, *, unit="um", prune=True, prune_factor=1.5,
                         min_branch_length=0.0, merge_junctions=True, extend_tips=False,
-                        smoothing=2.0, radius_method="shells", timings=None, meta=None):
-    """Build the graph of an already thinned mask.  See :func:`skeleton_graph`."""
+                        smoothing=2.0, radius_method="shells", timings=None, meta=None,
+                        dist_sq=None):
+    """Build the graph of an already thinned mask.  See :func:`skeleton_graph`.
+
+    ``dist_sq``, when given, is the mask's squared distance map
+    (:func:`skelmorph.thinning.distance_map_sq`); centreline radii are then
+    read from it instead of searched for.
+    """
     spacing = validate_spacing(1.0 if spacing is None else spacing, mask.ndim)
     skel = np.asarray(skel, bool)
     mask = np.asarray(mask, bool)
     if skel.shape != mask.shape:
         raise InputError(f"skeleton shape {skel.shape} differs from mask shape {mask.shape}")
-    w = _raw_graph(skel, mask, spacing, radius_method, timings)
+    w = _raw_graph(skel, mask, spacing, radius_method, timings, dist_sq)
     with _timed(timings, "topology"):
         _drop_spurious_loops(w, euler_characteristic(np.argwhere(skel), skel.shape),
                              lambda: count_cavities(mask))
@@ -836,7 +851,7 @@ def graph_from_skeleton(skel, mask, spacing=None, *, unit="um", prune=True, prun
 
 def skeleton_graph(mask, spacing=None, prune=True, *, unit="um", prune_factor=1.5,
                    min_branch_length=0.0, merge_junctions=True, extend_tips=False,
-                   smoothing=2.0, isotropic="auto", method=None, timings=None):
+                   smoothing=2.0, isotropic=False, method="ordered", timings=None):
     """Centreline graph of a binary 2D or 3D mask.
 
     Parameters
@@ -868,11 +883,14 @@ def skeleton_graph(mask, spacing=None, prune=True, *, unit="um", prune_factor=1.
     smoothing : float
         Gaussian smoothing of the polylines before lengths are measured, in
         voxels (0 = raw voxel steps, which over-estimate length by 5-13 %).
-    isotropic : {"auto", True, False}
-        Resample anisotropic masks to cubic voxels before thinning; "auto"
-        does so when the largest/smallest voxel size ratio exceeds 1.2.
-    method : {None, "zhang", "lee"}
-        Thinning method (None: Zhang-Suen in 2D, Lee in 3D).
+    isotropic : bool
+        Resample the mask to cubic voxels before thinning.  Off by default:
+        the thinning works on the anisotropic grid, and resampling can cut
+        diagonal links (it is kept for comparisons with scikit-image's
+        thinning, which assumes cubic voxels).  Recorded in ``meta``.
+    method : {"ordered", "lee", "zhang"}
+        Thinning: our distance-ordered thinning (default) or scikit-image's
+        (see :func:`skelmorph.skeleton.skeletonize`).
     timings : dict, optional
         Filled with seconds spent per stage (``resample``, ``skeletonize``,
         ``restore``, ``graph``, ``radii``, ``topology``).
@@ -885,35 +903,55 @@ def skeleton_graph(mask, spacing=None, prune=True, *, unit="um", prune_factor=1.
     ------
     InputError
         A mask that is not binary, empty, all foreground, of the wrong
-        dimensionality or has NaN values.
+        dimensionality or has NaN values, or an unknown thinning method.
     SpacingError
         A bad voxel size.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> ring = np.zeros((40, 40), bool)
+    >>> yy, xx = np.mgrid[:40, :40]
+    >>> ring[(np.hypot(yy - 20, xx - 20) < 15) & (np.hypot(yy - 20, xx - 20) > 9)] = True
+    >>> skeleton_graph(ring).cycle_rank
+    1
     """
+    from .skeleton import THINNING_METHODS
+
     mask = check_image_array(mask)
     if not is_binary(mask):
         raise InputError("skeleton_graph needs a binary mask; threshold grey images first "
                          "(skelmorph.to_mask)")
     mask = check_mask(as_bool_mask(mask))
     spacing = validate_spacing(1.0 if spacing is None else spacing, mask.ndim)
+    method = method or "ordered"
+    if method not in THINNING_METHODS:
+        raise InputError(f"unknown thinning method {method!r}; use one of "
+                         f"{', '.join(THINNING_METHODS)}")
     source_spacing, source_shape = spacing, mask.shape
     resampled = False
-    ratio = max(spacing) / min(spacing)
-    if isotropic is True or (isotropic == "auto" and ratio > ANISOTROPY_LIMIT):
-        if ratio > 1.0:
-            with _timed(timings, "resample"):
-                mask, spacing = resample_isotropic(mask, spacing)
-            resampled = True
-            check_mask(mask)
+    if isotropic and max(spacing) > min(spacing):
+        with _timed(timings, "resample"):
+            mask, spacing = resample_isotropic(mask, spacing)
+        resampled = True
+        check_mask(mask)
+    dist_sq = None
     with _timed(timings, "skeletonize"):
-        skel = skeletonize(mask, method=method)
-    with _timed(timings, "restore"):
-        skel = _restore_vanished(mask, skel)
+        if method == "ordered":
+            from .thinning import distance_map_sq, thin
+            dist_sq = distance_map_sq(mask, spacing)
+            skel = thin(mask, spacing, dsq=dist_sq)
+        else:
+            skel = skeletonize(mask, method=method)
+    if method != "ordered":  # ours never erases a component
+        with _timed(timings, "restore"):
+            skel = _restore_vanished(mask, skel)
     graph = graph_from_skeleton(skel, mask, spacing, unit=unit, prune=prune,
-                               prune_factor=prune_factor, min_branch_length=min_branch_length,
-                               merge_junctions=merge_junctions, extend_tips=extend_tips,
-                               smoothing=smoothing, timings=timings,
+                                prune_factor=prune_factor, min_branch_length=min_branch_length,
+                                merge_junctions=merge_junctions, extend_tips=extend_tips,
+                                smoothing=smoothing, timings=timings, dist_sq=dist_sq,
                                 meta={"resampled_isotropic": resampled,
                                       "thinning_spacing": list(spacing),
-                                      "thinning": method or ("zhang" if mask.ndim == 2 else "lee")})
+                                      "thinning": method})
     # Report the source image's voxel size and shape, not the resampled ones.
     return dataclasses.replace(graph, spacing=source_spacing, shape=tuple(source_shape))

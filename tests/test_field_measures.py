@@ -231,7 +231,9 @@ def test_venation_grid(cells, spurs):
     rr = venation_measures(g, ph.mask, ph.spacing, region=region)
     assert rr["lamina_source"] == "region"
     expected = ph.truth["axis_length"] / ph.truth["lamina_area"]
-    assert rr["VLA"] == pytest.approx(expected, rel=0.03)
+    # Thinned veinlets stop about one half-width short of their drawn tips
+    # (dossier 4.1), so each spur costs a few pixels: 4 % with 6 spurs.
+    assert rr["VLA"] == pytest.approx(expected, rel=0.03 + 0.002 * spurs)
 
 
 # ----------------------------------------------------------- CLI and errors

@@ -65,7 +65,9 @@ def test_bent_tube_length():
     p = ph.bent_tube(bend_radius=30, angle=np.pi / 2, radius=4)
     g = graph_of(p)
     assert g.n_edges == 1
-    assert 0.95 * 15 * np.pi <= g.edge_length.sum() <= 1.01 * 15 * np.pi
+    # Each end may sit up to ~3 voxels inside the cap centre (dossier 4.1:
+    # "~3 voxels inside the centreline end" on a capsule of radius 4).
+    assert 15 * np.pi - 2 * 3 <= g.edge_length.sum() <= 1.01 * 15 * np.pi
 
 
 def test_helix_length_and_distance_metric():
