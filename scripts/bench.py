@@ -1,7 +1,11 @@
 """Benchmarks: every capability, with ratios against references measured in the same run.
 
-- pipeline: each stage on foam phantoms against the thinning itself
-  (scikit-image), scipy's full distance transform and a KD-tree radius search;
+- thinning: our distance-ordered thinning (1 and 2 threads) against
+  scikit-image's on foam phantoms, with peak memory of each (measured in a
+  child process), and the whole default ``analyze`` (graph, trees, profiles,
+  files) against scikit-image's thinning of the same volume;
+- pipeline: each stage on foam phantoms against the thinning itself,
+  scipy's full distance transform and a KD-tree radius search;
 - trees: elder-rule barcodes on trees of 10^4-10^6 points against the same
   barcode from gudhi's persistence, and spanning trees of the foam graph;
 - profiles: radial profiles with 10 and 1000 radii on a 10^6-point tree and
@@ -74,6 +78,51 @@ def bench_pipeline(size, tmp):
     print(f"  loop check: sparse Euler characteristic {t['topology']:.3f} s vs scikit-image "
           f"euler_number {t_euler_ref:.3f} s (x{t_euler_ref / t['topology']:.1f})")
     return {"size": size, "voxels": n_vox, "ratio": ours / t["skeletonize"], "graph": graph}
+
+
+def _peak_rss_of(code):
+    """Run ``code`` in a fresh interpreter; return (seconds it printed, its peak RSS in MB)."""
+    import subprocess
+    code += "; import resource; print(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss)"
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    lines = out.stdout.strip().splitlines()
+    return float(lines[-2]), float(lines[-1]) / 1024
+
+
+def bench_thinning(size, tmp):
+    """Our thinning against scikit-image's, and the whole analyze against thinning."""
+    import numba
+    from skelmorph.thinning import thin
+
+    ph = foam(size=float(size), cell=16.0, rod_radius=2.5, seed=0)
+    mask = ph.mask
+    thin(np.ascontiguousarray(mask[:24, :24, :24]))  # compile / load the kernels
+    n_threads = numba.get_num_threads()
+    numba.set_num_threads(1)
+    _, t_one = clock(thin, mask)
+    numba.set_num_threads(n_threads)
+    sk_ours, t_two = clock(thin, mask)
+    sk_ref, t_ref = clock(skeletonize, mask, method="lee")
+    print(f"\nthinning foam {size}^3 ({mask.mean():.0%} solid): ours 1 thread {t_one:.2f} s, "
+          f"{n_threads} threads {t_two:.2f} s | scikit-image (Lee) {t_ref:.2f} s | "
+          f"ratio 1 thread x{t_ref / t_one:.2f}, {n_threads} threads x{t_ref / t_two:.2f}")
+    print(f"  centreline voxels: ours {int(sk_ours.sum())}, scikit-image {int(sk_ref.sum())}; "
+          f"Euler number mask {euler_number(mask, 3)}, ours {euler_number(sk_ours, 3)}, "
+          f"scikit-image {euler_number(sk_ref, 3)}")
+    path = Path(tmp) / f"foam{size}.npy"
+    np.save(path, mask)
+    load = f"import numpy as np, time; m = np.load({str(path)!r})"
+    t_o, mem_o = _peak_rss_of(load + "; from skelmorph.thinning import thin; thin(m[:24,:24,:24].copy());"
+                              " t=time.perf_counter(); thin(m); print(time.perf_counter()-t)")
+    t_s, mem_s = _peak_rss_of(load + "; from skimage.morphology import skeletonize;"
+                              " t=time.perf_counter(); skeletonize(m); print(time.perf_counter()-t)")
+    print(f"  peak memory (child process, incl. interpreter): ours {mem_o:.0f} MB, "
+          f"scikit-image {mem_s:.0f} MB; mask {mask.nbytes / 2**20:.0f} MB")
+    out = Path(tmp) / f"analyze{size}"
+    res, t_an = clock(sm.analyze, mask, (1.0, 1.0, 1.0), out=out)
+    print(f"  whole analyze (graph, tree, barcode, profiles, files): {t_an:.2f} s = "
+          f"x{t_an / t_ref:.2f} scikit-image's thinning (target <= 1.5); stages: "
+          + ", ".join(f"{k} {v:.2f}" for k, v in res.timings.items()))
 
 
 def random_skeleton_tree(n, seed=0):
@@ -368,10 +417,10 @@ def main(argv=None):
     ap.add_argument("--large", action="store_true", help="also run 512^3")
     ap.add_argument("--sizes", type=int, nargs="+", default=[128, 256])
     ap.add_argument("--only", nargs="+",
-                    default=["pipeline", "measures", "trees", "profiles", "paths", "cohort",
-                             "report"],
-                    choices=["pipeline", "measures", "trees", "profiles", "paths", "cohort",
-                             "report"])
+                    default=["thinning", "pipeline", "measures", "trees", "profiles", "paths",
+                             "cohort", "report"],
+                    choices=["thinning", "pipeline", "measures", "trees", "profiles", "paths",
+                             "cohort", "report"])
     args = ap.parse_args(argv)
     sizes = args.sizes + ([512] if args.large else [])
     print(f"skelmorph {sm.__version__}, numpy {np.__version__}, python {sys.version.split()[0]}")
@@ -380,6 +429,10 @@ def main(argv=None):
     sm.skeleton_graph(foam(size=24.0, cell=8.0, rod_radius=1.5).mask)
     print(f"warm-up (imports, first calls): {time.perf_counter() - t0:.2f} s")
     graph = None
+    if "thinning" in args.only:
+        with tempfile.TemporaryDirectory() as tmp:
+            for s in sizes:
+                bench_thinning(s, tmp)
     if "pipeline" in args.only:
         with tempfile.TemporaryDirectory() as tmp:
             rows = [bench_pipeline(s, tmp) for s in sizes]

@@ -44,6 +44,7 @@ from .errors import InputError
 from .graph import SkeletonGraph
 from .io import check_image_array, normalise_unit, validate_spacing
 from .polyline import polyline_lengths, smooth_polylines
+from .radius import equivalent_radius
 from .segment import as_bool_mask, check_mask, count_cavities, is_binary
 from .skeleton import resample_isotropic, skeletonize
 
@@ -780,7 +781,7 @@ def _drop_spurious_loops(w, euler, cavities):
     return len(drop)
 
 
-def _finish(w, spacing, unit, shape, smoothing, meta):
+def _finish(w, spacing, unit, shape, smoothing, meta, mask=None):
     """Drop nodes left without edges, flatten polylines, smooth them, measure lengths."""
     alive = (w.degree() > 0) | w.protected
     new_id = np.cumsum(alive) - 1
@@ -798,14 +799,24 @@ def _finish(w, spacing, unit, shape, smoothing, meta):
     # A ring anchor (one self-loop, nothing else) smooths as a closed curve.
     closed = (u == v) & (degree[u] == 2) if len(u) else np.zeros(0, bool)
     # Smoothing works in points, i.e. about voxels of the finest axis.
+    raw_points = points
     points = smooth_polylines(points, offsets, smoothing, closed=closed)
+    edge_radius = None
+    if mask is not None:
+        # Leave out twice the node radius at junctions (where daughters still
+        # overlap each other and the parent), once at tips.
+        reach = node_r * np.where(degree >= 3, 2.0, 1.0)
+        edge_radius = equivalent_radius(mask, spacing, raw_points, points, offsets,
+                                        np.column_stack([reach[u], reach[v]]) if len(u)
+                                        else np.zeros((0, 2)))
     if closed.any():
         nodes = nodes.copy()
         nodes[u[closed]] = points[offsets[:-1][closed]]
     length = polyline_lengths(points, offsets)
     return SkeletonGraph(nodes=nodes, node_radius=node_r, node_degree=degree, edges=edges,
                          points=points, point_radius=radius, offsets=offsets, edge_length=length,
-                         spacing=tuple(spacing), unit=unit, shape=tuple(shape), meta=meta)
+                         spacing=tuple(spacing), unit=unit, shape=tuple(shape), meta=meta,
+                         edge_radius=edge_radius)
 
 
 # ----------------------------------------------------------------------------- public API
@@ -846,7 +857,7 @@ def graph_from_skeleton(skel, mask, spacing=None, *, unit="um", prune=True, prun
                     min_branch_length=float(min_branch_length), merge_junctions=bool(merge_junctions),
                     tip_extension=bool(extend_tips), smoothing=float(smoothing),
                     skelmorph_version=__version__)
-        return _finish(w, spacing, normalise_unit(unit), mask.shape, smoothing, meta)
+        return _finish(w, spacing, normalise_unit(unit), mask.shape, smoothing, meta, mask)
 
 
 def skeleton_graph(mask, spacing=None, prune=True, *, unit="um", prune_factor=1.5,

@@ -50,6 +50,9 @@ def _parser():
                    help="also prune tip branches shorter than this length (unit)")
     k.add_argument("--extend-tips", action="store_true",
                    help="lengthen tip branches by their tip radius")
+    k.add_argument("--thinning", choices=("ordered", "lee", "zhang"), default="ordered",
+                   help="thinning: ours, distance-ordered on the native voxel grid (default), "
+                        "or scikit-image's Lee (3D) / Zhang-Suen (2D) for comparison")
     k.add_argument("--smoothing", type=float, default=2.0,
                    help="centreline smoothing before measuring length, voxels (0 = none)")
     m = a.add_argument_group("field measures")
@@ -153,6 +156,7 @@ def _cmd_analyze(args):
                      min_object_size=args.min_object_size, max_hole_size=args.max_hole_size,
                      prune=not args.no_prune, prune_factor=args.prune_factor,
                      min_branch_length=args.min_branch_length, extend_tips=args.extend_tips,
+                     thinning=args.thinning,
                      smoothing=args.smoothing, root=args.root,
                      tree=None if args.tree == "none" else args.tree, n_trees=args.trees,
                      filtration=args.filtration, seed=args.seed,

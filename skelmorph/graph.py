@@ -62,6 +62,10 @@ class SkeletonGraph:
         Shape of the source image, in voxels (for densities and faces).
     meta : dict
         How the graph was made (options, conventions).
+    edge_radius : (E,) float array, optional
+        Volume-equivalent radius of each branch
+        (:func:`skelmorph.radius.equivalent_radius`); NaN where a branch is
+        too short to have one.  See :meth:`branch_radius`.
     """
 
     nodes: np.ndarray
@@ -76,6 +80,7 @@ class SkeletonGraph:
     unit: str = "um"
     shape: tuple = ()
     meta: dict = field(default_factory=dict)
+    edge_radius: np.ndarray = None
 
     # ------------------------------------------------------------------ basics
     @property
@@ -140,6 +145,14 @@ class SkeletonGraph:
         tips = (du == 1).astype(int) + (dv == 1).astype(int)
         kind = np.where(tips == 2, "isolated", np.where(tips == 1, "terminal", "internal"))
         return np.where(u == v, "ring", kind).astype(object)
+
+    def branch_radius(self):
+        """One radius per branch: the volume-equivalent radius where there is
+        one, else the length-weighted mean of the point radii."""
+        mean, _, _ = self.edge_radius_stats()
+        if self.edge_radius is None or len(self.edge_radius) != self.n_edges:
+            return mean
+        return np.where(np.isfinite(self.edge_radius), self.edge_radius, mean)
 
     def edge_radius_stats(self):
         """Per-edge mean, min and max radius over polyline points (length-weighted mean)."""
@@ -243,6 +256,8 @@ class SkeletonGraph:
         if lists:
             d = {k: v.tolist() for k, v in d.items()}
         d.update(spacing=list(self.spacing), unit=self.unit, shape=list(self.shape), meta=self.meta)
+        if self.edge_radius is not None:
+            d["edge_radius"] = self.edge_radius.tolist() if lists else self.edge_radius
         return d
 
     @classmethod
@@ -305,6 +320,8 @@ class SkeletonGraph:
             offsets=np.asarray(d["offsets"], np.int64),
             edge_length=np.asarray(d["edge_length"], float),
         )
+        if "edge_radius" in d:
+            arrays["edge_radius"] = np.asarray(d["edge_radius"], float)
         return cls(**arrays, spacing=tuple(float(s) for s in d["spacing"]), unit=str(d["unit"]),
                    shape=tuple(int(s) for s in d["shape"]), meta=dict(d.get("meta") or {}))
 

@@ -46,7 +46,7 @@ class AnalysisResult:
 def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dark=False,
             min_object_size=None, max_hole_size=None, prune=True, prune_factor=1.5,
             min_branch_length=0.0, extend_tips=False, smoothing=2.0, merge_junctions=True,
-            root="thickest", tree="shortest", n_trees=1, filtration="radial", seed=0,
+            thinning="ordered", root="thickest", tree="shortest", n_trees=1, filtration="radial", seed=0,
             root_point=None, root_face=None, n_radii=200, paths=None, measures=None,
             region=None, thickness_map=False, out=None, figures=True, progress=False):
     """Analyse one image end to end.
@@ -61,6 +61,9 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
         Segmentation of grey images, see :func:`skelmorph.to_mask`.
     prune, prune_factor, min_branch_length, extend_tips, smoothing, merge_junctions
         Graph options, see :func:`skelmorph.skeleton_graph`.
+    thinning : {"ordered", "lee", "zhang"}
+        Thinning method (``method`` of :func:`skelmorph.skeleton_graph`):
+        ours by default, scikit-image's for comparison.
     root, root_point, root_face, tree, n_trees, filtration, seed
         Tree descriptors of the largest component: root rule
         (:func:`skelmorph.choose_root`), spanning rule and number of trees
@@ -121,7 +124,8 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
     bar.update(note="segmented")
     graph = skeleton_graph(mask, spacing, prune=prune, unit=unit, prune_factor=prune_factor,
                            min_branch_length=min_branch_length, merge_junctions=merge_junctions,
-                           extend_tips=extend_tips, smoothing=smoothing, timings=timings)
+                           extend_tips=extend_tips, smoothing=smoothing, method=thinning,
+                           timings=timings)
     bar.update(note="graph built")
     t0 = time.perf_counter()
     summary = summarize(graph)

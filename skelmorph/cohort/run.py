@@ -33,7 +33,7 @@ __all__ = ["run_cohort", "load_options", "ANALYZE_OPTIONS", "RunReport", "collec
 #: Options of :func:`skelmorph.analyze` that a cohort options file may set.
 ANALYZE_OPTIONS = {
     "channel", "threshold", "dark", "min_object_size", "max_hole_size", "prune", "prune_factor",
-    "min_branch_length", "extend_tips", "smoothing", "merge_junctions", "root", "tree",
+    "min_branch_length", "extend_tips", "smoothing", "merge_junctions", "thinning", "root", "tree",
     "n_trees", "filtration", "seed", "root_point", "root_face", "n_radii", "paths",
     "measures", "thickness_map", "figures",
 }

@@ -68,6 +68,10 @@ def summarize(graph):
     ``mean_tortuosity``
         Mean length/chord over branches that are not rings.
     ``spacing``, ``unit``, ``skelmorph_version``, ``tip_extension``
+    ``processing``
+        The choices that shaped the graph: thinning method, whether the mask
+        was resampled (and the voxel size thinned), smoothing, pruning,
+        junction merging.
     """
     deg = graph.node_degree
     length = graph.edge_length
@@ -99,5 +103,9 @@ def summarize(graph):
         "spacing": list(graph.spacing),
         "unit": graph.unit,
         "tip_extension": bool(graph.meta.get("tip_extension", False)),
+        "processing": {k: graph.meta[k] for k in ("thinning", "resampled_isotropic",
+                                                  "thinning_spacing", "smoothing", "prune",
+                                                  "prune_factor", "merge_junctions")
+                       if k in graph.meta},
         "skelmorph_version": __version__,
     }

@@ -135,7 +135,8 @@ def murray_exponent(r0, r1, r2):
 
 
 def _branch_radius(graph):
-    """Robust branch radius: median point radius over the inner 60 % of each branch."""
+    """Robust branch radius: the volume-equivalent radius, else the median
+    point radius over the inner 60 % of each branch."""
     off = graph.offsets
     eid = edge_index(off)
     n = np.diff(off)
@@ -153,7 +154,12 @@ def _branch_radius(graph):
     hi = start[has] + counts[has] // 2
     out[has] = 0.5 * (rr[lo] + rr[hi])
     mean, _, _ = graph.edge_radius_stats()
-    return np.where(np.isfinite(out), out, mean)
+    out = np.where(np.isfinite(out), out, mean)
+    if graph.edge_radius is not None and len(graph.edge_radius) == graph.n_edges:
+        # The volume-equivalent radius where the branch has one (unbiased at
+        # a few voxels; see skelmorph.radius).
+        out = np.where(np.isfinite(graph.edge_radius), graph.edge_radius, out)
+    return out
 
 
 def _direction_from(graph, e, node, arc):

@@ -1,0 +1,130 @@
+"""Branch radii that hold at a few voxels: the equivalent-cylinder radius.
+
+The distance from a centreline voxel to the nearest background voxel centre
+is biased by up to half a voxel either way (methods dossier 2.5: a tube of
+diameter 9 on the grid reads 5 instead of 4.5; diameter 8 off the grid 3.61
+instead of 4), which is 10-20 % at radii of 2-4 voxels and pulls Murray
+exponents far from their value.  The voxel count of a branch is not biased
+that way: every object voxel is given to its nearest centreline voxel
+(a breadth-first flood over the mask from all centreline voxels at once),
+the voxels given to the inner part of a branch -- more than twice the node
+radius away from a junction and one radius from a tip, so junction blobs,
+overlapping daughters and end caps are left out -- make
+its volume V, and the radius of the cylinder of the same volume and length
+is r = sqrt(V / (pi L)) in 3D (r = A / (2 L) in 2D, half the mean width).
+This is the volume-equivalent radius of the methods dossier (2.5, common
+practice; no single published source is claimed here).  Measured bias on
+analytic tubes is in the README and in ``tests/test_thinning.py``.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+__all__ = ["equivalent_radius"]
+
+
+@njit(cache=True)
+def _flood_labels(obj, labels, seeds, strides):
+    """Give every object voxel the label of its nearest seed (6-neighbour hops).
+
+    ``obj`` is a padded flat mask, ``labels`` (int32, -2 = unassigned) holds
+    the seeds' labels; ties go to the seed reached first in the fixed queue
+    order, so the result is deterministic.
+    """
+    queue = np.empty(obj.size if obj.size < 2**31 else 2**31, np.int64)
+    head = 0
+    tail = 0
+    for s in seeds:
+        queue[tail] = s
+        tail += 1
+    while head < tail:
+        p = queue[head]
+        head += 1
+        lab = labels[p]
+        for a in range(strides.size):
+            for sign in (-1, 1):
+                q = p + sign * strides[a]
+                if obj[q] and labels[q] == -2:
+                    labels[q] = lab
+                    queue[tail] = q
+                    tail += 1
+
+
+def equivalent_radius(mask, spacing, raw_points, points, offsets, end_radius):
+    """Volume-equivalent radius of every branch.
+
+    Parameters
+    ----------
+    mask : ndarray of bool
+        The segmented structure (2D or 3D).
+    spacing : sequence of float
+    raw_points : (K, d) float array
+        Polyline points at voxel centres (physical units), before smoothing.
+    points : (K, d) float array
+        The same points after smoothing (for lengths).
+    offsets : (E + 1,) int array
+    end_radius : (E, 2) float array
+        Node radius at the first and last point of each branch; points closer
+        than that (along the branch) to an end are not the branch's inner part.
+
+    Returns
+    -------
+    (E,) float array, NaN where a branch has no inner part.
+    """
+    mask = np.asarray(mask, bool)
+    sp = np.asarray(spacing, float)
+    ndim = mask.ndim
+    n_edges = len(offsets) - 1
+    out = np.full(n_edges, np.nan)
+    if n_edges == 0 or len(raw_points) == 0:
+        return out
+    eid = np.repeat(np.arange(n_edges), np.diff(offsets))
+    step = np.zeros(len(points))
+    step[1:] = np.linalg.norm(np.diff(points, axis=0), axis=1)
+    step[offsets[:-1]] = 0.0
+    arc = np.cumsum(step)
+    arc -= arc[offsets[:-1]][eid]
+    total = arc[offsets[1:] - 1][eid]
+    pos = np.arange(len(points)) - offsets[:-1][eid]
+    last = pos == np.diff(offsets)[eid] - 1
+    inner = (pos > 0) & ~last & (arc >= end_radius[eid, 0]) & (total - arc >= end_radius[eid, 1])
+    # Padded flat indices of every point's voxel.
+    vox = np.rint(raw_points / sp).astype(np.int64)
+    shape = np.asarray(mask.shape)
+    vox = np.clip(vox, 0, shape - 1)
+    pshape = shape + 2
+    strides = np.ones(ndim, np.int64)
+    for a in range(ndim - 2, -1, -1):
+        strides[a] = strides[a + 1] * pshape[a + 1]
+    flat = (vox + 1) @ strides
+    # A voxel in several branches' inner parts, or in any other role, claims for nobody.
+    label_of_point = np.where(inner, eid, -1)
+    order = np.lexsort((label_of_point, flat))
+    f_sorted, l_sorted = flat[order], label_of_point[order]
+    first = np.r_[True, f_sorted[1:] != f_sorted[:-1]]
+    lo = np.minimum.reduceat(l_sorted, np.flatnonzero(first))
+    hi = np.maximum.reduceat(l_sorted, np.flatnonzero(first))
+    seed_label = np.where(lo == hi, lo, -1).astype(np.int32)
+    seeds = f_sorted[first]
+    obj = np.pad(mask, 1).ravel()
+    labels = np.full(obj.size, -2, np.int32)
+    labels[seeds] = seed_label
+    obj_seeded = obj.copy()
+    obj_seeded[seeds] = True  # a point off the mask (a merged node) still seeds
+    _flood_labels(obj_seeded, labels, seeds, strides)
+    got = labels[obj & (labels >= 0)]
+    volume = np.bincount(got, minlength=n_edges).astype(float) * float(np.prod(sp))
+    # Length owned by the inner points: half of each adjacent step.
+    half = np.zeros(len(points))
+    half[:-1] += 0.5 * step[1:]
+    half += 0.5 * step
+    length = np.bincount(eid[inner], half[inner], minlength=n_edges)
+    ok = length > 0
+    if ndim == 3:
+        out[ok] = np.sqrt(volume[ok] / (np.pi * length[ok]))
+    else:
+        out[ok] = volume[ok] / (2.0 * length[ok])
+    out[ok & (volume == 0)] = np.nan
+    return out
