@@ -305,7 +305,7 @@ def test_summary_and_distance():
     prof = pd.DataFrame({"radius": r, "crossings": n})
     prof.attrs["ndim"] = 3
     summary = profile_summary(prof)
-    assert summary["sholl_decay"] == pytest.approx(0.07, rel=1e-9)
+    assert summary["sholl_regression_coefficient"] == pytest.approx(0.07, rel=1e-9)
     assert summary["radius_of_max_crossings"] == pytest.approx(r[np.argmax(n)])
     # L1 distance between y = r and y = r + 1 on [0, 10]: 10 (analytic).
     a = pd.DataFrame({"radius": np.linspace(0, 10, 11), "total_length": np.linspace(0, 10, 11)})

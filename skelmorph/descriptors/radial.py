@@ -398,7 +398,7 @@ def _charges(obj, s, weights):
 
 # ----------------------------------------------------------- summaries, distances
 def profile_summary(profile):
-    """Maximum crossings, its radius, and the Sholl decay coefficient.
+    """Maximum crossings, its radius, and Sholl's regression coefficient (Sholl 1953).
 
     The decay coefficient k is minus the slope of the least-squares line of
     log(crossings / S(r)) against r over radii with crossings > 0 (Sholl
@@ -417,7 +417,7 @@ def profile_summary(profile):
         k = float(-slope)
     return {"max_crossings": float(n[i]) if len(n) else 0.0,
             "radius_of_max_crossings": float(r[i]) if len(n) else float("nan"),
-            "sholl_decay": k}
+            "sholl_regression_coefficient": k}
 
 
 def profile_distance(a, b, column, p=1, normalise=False, n_grid=512):
