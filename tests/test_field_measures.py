@@ -197,13 +197,26 @@ def test_murray_exponent_solver(radii, x):
 
 def test_y_bifurcation_murray_and_angle():
     """Y phantom with Murray radii (r0 = 5, daughters 5 x 2^(-1/3)) at +-30
-    degrees: exponent near 3 (voxel radii shift it; tolerance 0.3) and
-    daughter angle 60 +- 3 degrees (dossier 5.5, tolerance as stated there)."""
+    degrees, drawn with its axes on voxel centres.  Digitised that way the
+    stem is thicker and the in-plane daughters thinner than drawn (Gauss
+    circle counts: 81 voxels per stem slice against 25 pi = 78.5), so the
+    exponent of the *digital* object is computed here from voxel counts of
+    slices across the tubes (independent of skelmorph) and the fitted one
+    must match it within 0.1; daughter angle 60 +- 3 degrees (dossier 5.5,
+    tolerance as stated there).  Randomly oriented forks, where no lattice
+    alignment biases the counts, are checked against 3 in test_thinning.py."""
     ph = sm.phantoms.make("y")
     g = sm.skeleton_graph(ph.mask, ph.spacing)
     b = bifurcations(g)
     assert len(b["node"]) == 1
-    assert b["murray_exponent"][0] == pytest.approx(3.0, abs=0.3)
+    m, base, fork = ph.mask, ph.truth["base"], ph.truth["fork"]
+    stem = np.mean([m[:, y].sum() for y in range(int(base[1]) + 10, int(fork[1]) - 10)])
+    daughter = np.mean([m[:, y].sum() for y in range(int(fork[1]) + 20, int(fork[1]) + 40)]) / 2
+    r0 = np.sqrt(stem / np.pi)
+    r1 = np.sqrt(daughter * np.cos(np.deg2rad(30)) / np.pi)
+    assert murray_exponent(r0, r1, r1) == pytest.approx(2.6, abs=0.1)  # the digital Y
+    assert b["murray_exponent"][0] == pytest.approx(murray_exponent(r0, r1, r1), abs=0.1)
+    assert b["r0"][0] == pytest.approx(r0, rel=0.02)
     assert b["daughter_angle"][0] == pytest.approx(60.0, abs=3.0)
     summary, _, _ = vessel_measures(g, ph.mask, ph.spacing)
     assert summary["length_density"] == pytest.approx(g.edge_length.sum() / ph.mask.size)
