@@ -290,3 +290,33 @@ def count_walk_paths(adj_start, adj_nbr, k):
                 on_path[v] = False
                 depth -= 1
     return counts
+
+
+@njit(cache=True)
+def walk_paths(n, link_start, link_nbr, starts):
+    """Voxels of each chain in walking order, chains in the order of ``starts``.
+
+    ``link_start``/``link_nbr`` is the CSR adjacency of path voxels (each has
+    at most two path neighbours); each start is one end of its chain.  Linear
+    in the number of voxels (a depth-first order from one virtual source
+    over every chain costs more as the chains multiply).
+    """
+    order = np.empty(n, np.int64)
+    seen = np.zeros(n, np.bool_)
+    k = 0
+    for s in starts:
+        prev = -1
+        cur = s
+        while cur >= 0 and not seen[cur]:
+            seen[cur] = True
+            order[k] = cur
+            k += 1
+            nxt = -1
+            for j in range(link_start[cur], link_start[cur + 1]):
+                q = link_nbr[j]
+                if q != prev and not seen[q]:
+                    nxt = q
+                    break
+            prev = cur
+            cur = nxt
+    return order[:k]

@@ -43,6 +43,7 @@ from ._version import __version__
 from .errors import InputError
 from .graph import SkeletonGraph
 from .io import check_image_array, normalise_unit, validate_spacing
+from ._kernels import walk_paths
 from .polyline import polyline_lengths, smooth_polylines
 from .radius import equivalent_radius
 from .segment import as_bool_mask, check_mask, count_cavities, is_binary
@@ -453,13 +454,11 @@ def _raw_graph(skel, mask, spacing, radius_method, timings, dist_sq=None):
             ncomp, lab = _components(n, path_links)
             ends = slab[slab_deg[slab] < 2]
             _, first = np.unique(lab[ends], return_index=True)
-            starts = ends[first]
-            src = n  # virtual source node
-            extra = np.column_stack([np.full(len(starts), src), starts])
-            allp = np.concatenate([path_links, extra])
-            g = sparse.coo_matrix((np.ones(len(allp)), (allp[:, 0], allp[:, 1])), shape=(n + 1, n + 1))
-            order = csgraph.depth_first_order(g.tocsr(), src, directed=False,
-                                              return_predecessors=False)[1:]
+            starts = np.sort(ends[first])
+            both = np.concatenate([path_links, path_links[:, ::-1]])
+            both = both[np.lexsort((both[:, 1], both[:, 0]))]
+            link_start = np.searchsorted(both[:, 0], np.arange(n + 1))
+            order = walk_paths(n, link_start, both[:, 1], starts)
             olab = lab[order]
             cut = np.flatnonzero(np.diff(olab)) + 1
             bounds = np.concatenate([[0], cut, [len(order)]])
@@ -487,8 +486,8 @@ def _raw_graph(skel, mask, spacing, radius_method, timings, dist_sq=None):
             flat_r[inner] = vox_r[order]
             flat[offs[:-1]], flat_r[offs[:-1]] = node_pos[eu], node_r[eu]
             flat[offs[1:] - 1], flat_r[offs[1:] - 1] = node_pos[ev], node_r[ev]
-            pts_list = np.split(flat, offs[1:-1])
-            rad_list = np.split(flat_r, offs[1:-1])
+            pts_list = [flat[a:b] for a, b in zip(offs[:-1].tolist(), offs[1:].tolist())]
+            rad_list = [flat_r[a:b] for a, b in zip(offs[:-1].tolist(), offs[1:].tolist())]
             u_list, v_list = list(eu), list(ev)
         # Direct node-node links (e.g. a one-voxel spur on a junction).
         nn = links[is_node[links[:, 0]] & is_node[links[:, 1]]]
