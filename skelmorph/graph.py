@@ -19,7 +19,7 @@ from scipy import sparse
 from scipy.sparse import csgraph
 
 from .errors import SkelmorphError
-from .io import atomic_write
+from .io import atomic_write, format_numbers
 
 __all__ = ["SkeletonGraph", "BRANCH_KINDS"]
 
@@ -243,7 +243,7 @@ class SkeletonGraph:
                 json.dump(self._as_dict(lists=True), fh)
         elif suffix == ".npz":
             with atomic_write(path, "wb") as fh:
-                np.savez_compressed(fh, **{k: np.asarray(v) if k != "meta" else json.dumps(v)
+                np.savez(fh, **{k: np.asarray(v) if k != "meta" else json.dumps(v)
                                            for k, v in self._as_dict(lists=False).items()})
         else:
             raise SkelmorphError(f"unknown graph format {suffix!r}; use .graphml, .vtp, .json or .npz")
@@ -357,7 +357,7 @@ class SkeletonGraph:
             f'<data key="n{i}">%{"d" if t == "long" else "r"}</data>'
             for i, (_, t) in enumerate(node_keys)) + "</node>")
         nodes = [fmt % row for row in zip(range(self.n_nodes), *[c.tolist() for c in cols])]
-        coord = np.char.mod("%.6g", self.points.ravel()).tolist() if len(self.points) else []
+        coord = format_numbers(self.points)
         d = self.ndim
         kinds = self.edge_kind
         off = self.offsets.tolist()
@@ -376,13 +376,18 @@ class SkeletonGraph:
         counts = np.diff(self.offsets)
 
         def block(name, arr, fmt, ncomp=1, vtype="Float64"):
-            body = " ".join(fmt % v for v in np.ravel(arr))
+            # Inline binary: base64 of a 64-bit byte count followed by the
+            # little-endian values (VTK XML "binary" format, header UInt64).
+            import base64
+            data = np.ascontiguousarray(arr, dtype="<f8" if vtype == "Float64" else "<i8").tobytes()
+            body = base64.b64encode(np.uint64(len(data)).tobytes() + data).decode("ascii")
             return (f'<DataArray type="{vtype}" Name="{name}" NumberOfComponents="{ncomp}" '
-                    f'format="ascii">{body}</DataArray>')
+                    f'format="binary">{body}</DataArray>')
 
         parts = [
             '<?xml version="1.0"?>',
-            '<VTKFile type="PolyData" version="1.0" byte_order="LittleEndian">',
+            '<VTKFile type="PolyData" version="1.0" byte_order="LittleEndian" '
+            'header_type="UInt64">',
             "<PolyData>",
             f'<Piece NumberOfPoints="{len(pts)}" NumberOfVerts="0" NumberOfLines="{self.n_edges}" '
             f'NumberOfStrips="0" NumberOfPolys="0">',

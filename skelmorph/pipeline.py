@@ -279,7 +279,7 @@ def write_results(result, out, figures=True):
         files.append(out / "profiles.csv")
         if figures:
             from .report.figures import new_axes, plot_profiles, save
-            fig, axes = new_axes(4, 4, size=(2.6, 2.1))
+            fig, axes = new_axes(4, 4, size=(2.6, 2.1), fixed=True)
             plot_profiles(result.profiles, axes, unit=result.summary["unit"])
             fig.suptitle("radial profiles around the root (" + CAUTION.split(":")[0].lower() + ")",
                          fontsize=9)
@@ -291,7 +291,7 @@ def write_results(result, out, figures=True):
 def _barcode_figure(result, path):
     from .report.figures import new_axes, plot_barcode, plot_diagram, save
     s = result.summary
-    fig, ax = new_axes(2)
+    fig, ax = new_axes(2, fixed=True)
     label = f"{s['filtration']} filtration, {s['tree_method']} tree"
     plot_barcode(result.barcodes[0], ax[0, 0], unit=s["unit"], label=label)
     for i, b in enumerate(result.barcodes[:20]):

@@ -26,30 +26,29 @@ __all__ = ["equivalent_radius"]
 
 
 @njit(cache=True)
-def _flood_labels(obj, labels, seeds, strides):
-    """Give every object voxel the label of its nearest seed (6-neighbour hops).
+def _flood_labels(obj, labels, seeds, offsets, capacity):
+    """Give every object voxel the label of its nearest seed (face-neighbour hops).
 
     ``obj`` is a padded flat mask, ``labels`` (int32, -2 = unassigned) holds
     the seeds' labels; ties go to the seed reached first in the fixed queue
     order, so the result is deterministic.
     """
-    queue = np.empty(obj.size if obj.size < 2**31 else 2**31, np.int64)
-    head = 0
+    queue = np.empty(capacity, np.int64)
     tail = 0
     for s in seeds:
         queue[tail] = s
         tail += 1
+    head = 0
     while head < tail:
         p = queue[head]
         head += 1
         lab = labels[p]
-        for a in range(strides.size):
-            for sign in (-1, 1):
-                q = p + sign * strides[a]
-                if obj[q] and labels[q] == -2:
-                    labels[q] = lab
-                    queue[tail] = q
-                    tail += 1
+        for k in range(offsets.size):
+            q = p + offsets[k]
+            if obj[q] and labels[q] == -2:
+                labels[q] = lab
+                queue[tail] = q
+                tail += 1
 
 
 def equivalent_radius(mask, spacing, raw_points, points, offsets, end_radius):
@@ -113,7 +112,8 @@ def equivalent_radius(mask, spacing, raw_points, points, offsets, end_radius):
     labels[seeds] = seed_label
     obj_seeded = obj.copy()
     obj_seeded[seeds] = True  # a point off the mask (a merged node) still seeds
-    _flood_labels(obj_seeded, labels, seeds, strides)
+    offsets = np.concatenate([strides, -strides])
+    _flood_labels(obj_seeded, labels, seeds, offsets, int(np.count_nonzero(obj_seeded)))
     got = labels[obj & (labels >= 0)]
     volume = np.bincount(got, minlength=n_edges).astype(float) * float(np.prod(sp))
     # Length owned by the inner points: half of each adjacent step.
