@@ -320,3 +320,56 @@ def walk_paths(n, link_start, link_nbr, starts):
             prev = cur
             cur = nxt
     return order[:k]
+
+
+@njit(cache=True)
+def branch_voxel_paths(order, bounds, first_att, last_att, pred):
+    """Voxels of every branch from node voxel to node voxel.
+
+    Branch ``e`` is ``order[bounds[e]:bounds[e + 1]]`` (its path voxels);
+    ``first_att[e]``/``last_att[e]`` are the node voxels it touches at each
+    end.  Inside a junction cluster the path continues through the cluster's
+    voxels to the node's own voxel, following ``pred`` (shortest-path
+    predecessors towards it, negative at the node voxel).  Returns the flat
+    voxel indices and per-branch offsets.
+    """
+    n_b = bounds.size - 1
+    counts = np.zeros(n_b, np.int64)
+    for e in range(n_b):
+        c = bounds[e + 1] - bounds[e]
+        for a in (first_att[e], last_att[e]):
+            x = a
+            c += 1
+            while pred[x] >= 0:
+                x = pred[x]
+                c += 1
+        counts[e] = c
+    offs = np.zeros(n_b + 1, np.int64)
+    for e in range(n_b):
+        offs[e + 1] = offs[e] + counts[e]
+    out = np.empty(offs[n_b], np.int64)
+    for e in range(n_b):
+        # Prefix: node voxel ... first attachment (walk backwards, then reverse).
+        k = offs[e]
+        x = first_att[e]
+        m = 1
+        while pred[x] >= 0:
+            x = pred[x]
+            m += 1
+        x = first_att[e]
+        for j in range(m - 1, -1, -1):
+            out[k + j] = x
+            if pred[x] >= 0:
+                x = pred[x]
+        k += m
+        for i in range(bounds[e], bounds[e + 1]):
+            out[k] = order[i]
+            k += 1
+        x = last_att[e]
+        out[k] = x
+        k += 1
+        while pred[x] >= 0:
+            x = pred[x]
+            out[k] = x
+            k += 1
+    return out, offs

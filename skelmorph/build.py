@@ -43,7 +43,7 @@ from ._version import __version__
 from .errors import InputError
 from .graph import SkeletonGraph
 from .io import check_image_array, normalise_unit, validate_spacing
-from ._kernels import walk_paths
+from ._kernels import branch_voxel_paths, walk_paths
 from .polyline import polyline_lengths, smooth_polylines
 from .radius import equivalent_radius
 from .segment import as_bool_mask, check_mask, count_cavities, is_binary
@@ -437,9 +437,17 @@ def _raw_graph(skel, mask, spacing, radius_method, timings, dist_sq=None):
         node_of_voxel[node_vox] = node_id_of
         n_nodes = len(uniq)
         pos_vox = coords * sp
-        node_pos = np.zeros((n_nodes, coords.shape[1]))
-        np.add.at(node_pos, node_id_of, pos_vox[node_vox])
-        node_pos /= np.bincount(node_id_of, minlength=n_nodes)[:, None]
+        # A node sits on the voxel of its cluster nearest the cluster's centroid;
+        # branch ends reach it through the cluster's voxels (no straight jumps).
+        centroid = np.zeros((n_nodes, coords.shape[1]))
+        np.add.at(centroid, node_id_of, pos_vox[node_vox])
+        centroid /= np.bincount(node_id_of, minlength=n_nodes)[:, None]
+        gap = ((pos_vox[node_vox] - centroid[node_id_of]) ** 2).sum(axis=1)
+        pick = np.lexsort((node_vox, gap, node_id_of))
+        first_of = np.unique(node_id_of[pick], return_index=True)[1]
+        centre_vox = node_vox[pick[first_of]]
+        node_pos = pos_vox[centre_vox].copy()
+        pred = _cluster_predecessors(n, jlinks, centre_vox[junction[centre_vox]], pos_vox)
         node_r = np.zeros(n_nodes)
         np.maximum.at(node_r, node_id_of, vox_r[node_vox])
         protected = np.zeros(n_nodes, bool)
@@ -469,41 +477,53 @@ def _raw_graph(skel, mask, spacing, radius_method, timings, dist_sq=None):
             srt = np.argsort(sv, kind="stable")
             sv, nv = sv[srt], nv[srt]
             uv, idx, cnt = np.unique(sv, return_index=True, return_counts=True)
-            first_node = np.full(n, -1)
-            last_node = np.full(n, -1)
-            first_node[uv] = node_of_voxel[nv[idx]]
-            last_node[uv] = node_of_voxel[nv[idx + cnt - 1]]
+            first_att = np.full(n, -1)
+            last_att = np.full(n, -1)
             s_vox, e_vox = order[bounds[:-1]], order[bounds[1:] - 1]
-            eu, ev = first_node[s_vox], last_node[e_vox]
-            # Flat polylines: node, path voxels..., node.
-            counts = np.diff(bounds) + 2
-            offs = np.concatenate([[0], np.cumsum(counts)])
-            flat = np.empty((offs[-1], coords.shape[1]))
-            flat_r = np.empty(offs[-1])
-            inner = np.ones(offs[-1], bool)
-            inner[offs[:-1]] = inner[offs[1:] - 1] = False
-            flat[inner] = pos_vox[order]
-            flat_r[inner] = vox_r[order]
-            flat[offs[:-1]], flat_r[offs[:-1]] = node_pos[eu], node_r[eu]
-            flat[offs[1:] - 1], flat_r[offs[1:] - 1] = node_pos[ev], node_r[ev]
+            first_att[uv] = nv[idx]
+            last_att[uv] = nv[idx + cnt - 1]
+            fa, la = first_att[s_vox], last_att[e_vox]
+        else:
+            order, bounds = np.zeros(0, np.int64), np.zeros(1, np.int64)
+            fa = la = np.zeros(0, np.int64)
+        # Direct node-node links (e.g. a one-voxel spur on a junction): a
+        # branch without path voxels, one per pair of nodes.
+        nn = links[is_node[links[:, 0]] & is_node[links[:, 1]]]
+        a, b = node_of_voxel[nn[:, 0]], node_of_voxel[nn[:, 1]]
+        diff = np.flatnonzero(a != b)
+        if len(diff):
+            key_pairs = np.sort(np.column_stack([a[diff], b[diff]]), axis=1)
+            _, one = np.unique(key_pairs, axis=0, return_index=True)
+            pick = diff[np.sort(one)]
+            fa = np.concatenate([fa, nn[pick, 0]])
+            la = np.concatenate([la, nn[pick, 1]])
+            bounds = np.concatenate([bounds, np.full(len(pick), bounds[-1])])
+        if len(fa):
+            vox_idx, offs = branch_voxel_paths(order, bounds, fa, la, pred)
+            eu, ev = node_of_voxel[fa], node_of_voxel[la]
+            flat = pos_vox[vox_idx]
+            flat_r = vox_r[vox_idx]
+            flat_r[offs[:-1]], flat_r[offs[1:] - 1] = node_r[eu], node_r[ev]
             pts_list = [flat[a:b] for a, b in zip(offs[:-1].tolist(), offs[1:].tolist())]
             rad_list = [flat_r[a:b] for a, b in zip(offs[:-1].tolist(), offs[1:].tolist())]
             u_list, v_list = list(eu), list(ev)
-        # Direct node-node links (e.g. a one-voxel spur on a junction).
-        nn = links[is_node[links[:, 0]] & is_node[links[:, 1]]]
-        a, b = node_of_voxel[nn[:, 0]], node_of_voxel[nn[:, 1]]
-        diff = a != b
-        if diff.any():
-            pairs = np.unique(np.sort(np.column_stack([a[diff], b[diff]]), axis=1), axis=0)
-            for p, q in pairs:
-                u_list.append(p)
-                v_list.append(q)
-                pts_list.append(node_pos[[p, q]])
-                rad_list.append(node_r[[p, q]])
         u_list, v_list = list(u_list) + loops_u, list(v_list) + loops_u
         pts_list, rad_list = list(pts_list) + loops_pts, list(rad_list) + loops_rad
     return _Work(node_pos, node_r, protected, u_list, v_list, pts_list, rad_list,
                  skel.shape, spacing)
+
+
+def _cluster_predecessors(n, jlinks, sources, pos_vox):
+    """Shortest-path predecessors inside junction clusters, towards each
+    cluster's node voxel (``sources``); -1 at node voxels and elsewhere."""
+    pred = np.full(n, -1, np.int64)
+    if len(jlinks) == 0 or len(sources) == 0:
+        return pred
+    w = np.linalg.norm(pos_vox[jlinks[:, 0]] - pos_vox[jlinks[:, 1]], axis=1)
+    g = sparse.coo_matrix((w, (jlinks[:, 0], jlinks[:, 1])), shape=(n, n)).tocsr()
+    _, p, _ = csgraph.dijkstra(g, directed=False, indices=sources, min_only=True,
+                            return_predecessors=True)
+    return np.where(p >= 0, p, -1).astype(np.int64)
 
 
 def _cluster_tunnels(coords, junction, node_of_voxel, links, pos_vox, vox_r, node_pos, node_r,
@@ -556,6 +576,10 @@ def _components(n, links):
 
 # ----------------------------------------------------------------------------- clean-up
 
+#: Longest branch (in voxels of the coarsest axis) that junction merging contracts.
+MERGE_MAX_VOXELS = 3.0
+
+
 def _merge_close_junctions(w):
     """Contract short edges between two junctions closer than the sum of their radii.
 
@@ -567,10 +591,11 @@ def _merge_close_junctions(w):
         return False
     dist = np.linalg.norm(w.node_pos[u] - w.node_pos[v], axis=1)
     # Close: within the sum of the radii, joined by a branch no longer than
-    # the thicker junction's radius.  The second condition bounds the
-    # straight joins that contraction makes by the junction's own size, so
+    # the thicker junction's radius nor MERGE_MAX_VOXELS voxels.  Contraction
+    # joins the merged node's branches by straight segments of up to that
+    # length, so the cap keeps them within voxel noise of the centreline:
     # thick structures (radius large against their mesh) keep their branches.
-    reach = np.maximum(w.node_r[u], w.node_r[v])
+    reach = np.minimum(np.maximum(w.node_r[u], w.node_r[v]), MERGE_MAX_VOXELS * max(w.spacing))
     close = ((u != v) & (deg[u] >= 3) & (deg[v] >= 3) & (dist < w.node_r[u] + w.node_r[v])
              & (w.raw_lengths() <= reach))
     if not close.any():

@@ -157,6 +157,42 @@ def test_thick_slab_with_tunnels():
     assert 0.7 * n_vox <= g.edge_length.sum() <= 1.35 * n_vox
 
 
+def _centreline_length(mask, spacing=None):
+    """Length of the thinned centreline: the sum of its voxel links."""
+    from skelmorph.build import voxel_links
+    sk = sm.skeletonize(mask, spacing)
+    c = np.argwhere(sk)
+    links = voxel_links(c, sk.shape)
+    sp = np.ones(mask.ndim) if spacing is None else np.asarray(spacing, float)
+    return float(np.linalg.norm((c[links[:, 0]] - c[links[:, 1]]) * sp, axis=1).sum())
+
+
+@pytest.mark.parametrize("dark", [False, True])
+def test_retina_photo_length_bounded_by_centreline(dark):
+    # Real data: scikit-image's retina fundus photograph (skimage.data.retina,
+    # CC0 per its docstring), green channel, Otsu threshold.  Without --dark
+    # the mask is the whole fundus disc with the vessels as holes (a thick
+    # plate); either way the graph is never longer than the thinned
+    # centreline it comes from, and no step jumps across the plate.
+    from skimage import data
+    mask = sm.to_mask(data.retina()[..., 1], (1.0, 1.0), dark=dark)
+    g = sm.skeleton_graph(mask)
+    assert g.edge_length.sum() <= _centreline_length(mask)
+    steps = np.linalg.norm(np.diff(g.points, axis=0), axis=1)
+    inside = np.ones(len(steps), bool)
+    inside[g.offsets[1:-1] - 1] = False
+    assert steps[inside].max() <= 3.0  # voxel steps and merged junctions only
+
+
+@pytest.mark.parametrize("name", ["foam", "lattice", "venation", "tree", "frame"])
+def test_length_never_exceeds_centreline(name):
+    # Construction: smoothing only shortens polylines that follow the
+    # centreline voxels, and merged junctions add at most a few voxels.
+    ph = sm.phantoms.make(name)
+    g = sm.skeleton_graph(ph.mask, ph.spacing)
+    assert g.edge_length.sum() <= _centreline_length(ph.mask, ph.spacing)
+
+
 # ------------------------------------------------------------- anisotropic voxels
 
 def _random_walks(shape, n_walks, steps, seed):

@@ -196,18 +196,41 @@ def test_tie_rule_uses_geometry():
 
 
 # ------------------------------------------------------------- distances
+def _bottleneck_by_assignment(a, b):
+    """Exact bottleneck distance, independently: the smallest candidate cost t
+    for which the (diagram + diagonal) bipartite graph restricted to costs <= t
+    has a perfect matching (scipy.optimize.linear_sum_assignment on 0/1 costs)."""
+    from scipy.optimize import linear_sum_assignment
+    na, nb = len(a), len(b)
+    size = na + nb
+    cost = np.full((size, size), np.inf)
+    if na and nb:
+        cost[:na, :nb] = np.abs(a[:, None, :] - b[None, :, :]).max(axis=2)
+    cost[np.arange(na), nb + np.arange(na)] = (a[:, 1] - a[:, 0]) / 2
+    cost[na + np.arange(nb), np.arange(nb)] = (b[:, 1] - b[:, 0]) / 2
+    cost[na:, nb:] = 0.0
+    for t in np.unique(cost[np.isfinite(cost)]):
+        bad = (cost > t).astype(float)
+        r, c = linear_sum_assignment(bad)
+        if bad[r, c].sum() == 0:
+            return float(t)
+    return 0.0
+
+
 @given(st.integers(0, 2**31 - 1), st.integers(0, 12), st.integers(0, 12))
 def test_diagram_distances_match_gudhi(seed, n, m):
-    """Bottleneck (gudhi.bottleneck_distance) and 1-, 2-Wasserstein
-    (gudhi.hera.wasserstein_distance), both with the L-infinity ground metric."""
+    """Bottleneck against an exact assignment-based reference (scipy), and 1-,
+    2-Wasserstein against gudhi.hera.wasserstein_distance, both with the
+    L-infinity ground metric."""
     from gudhi.hera import wasserstein_distance as hera_w
     rng = np.random.default_rng(seed)
     b1, b2 = rng.uniform(0, 10, n), rng.uniform(0, 10, m)
     a = np.column_stack([b1, b1 + rng.exponential(2, n)])
     b = np.column_stack([b2, b2 + rng.exponential(2, m)])
-    # gudhi's e=0 "exact" mode disagreed with a brute-force matching on some
-    # inputs (gudhi 3.13); its default tolerance (smallest positive double) agrees.
-    assert bottleneck_distance(a, b) == pytest.approx(gudhi.bottleneck_distance(a, b), abs=1e-9)
+    # gudhi.bottleneck_distance (3.13) is not the reference: on seed 1,
+    # n = 3, m = 4 it returns 1.4210 in both modes where every partial
+    # matching enumerated gives 1.2276 (test_bottleneck_against_brute_force).
+    assert bottleneck_distance(a, b) == pytest.approx(_bottleneck_by_assignment(a, b), abs=1e-9)
     for p in (1, 2):
         ref = hera_w(a, b, order=p, internal_p=np.inf, delta=1e-7)
         assert wasserstein_distance(a, b, p) == pytest.approx(ref, rel=1e-5, abs=1e-9)
@@ -232,6 +255,14 @@ def test_bottleneck_against_brute_force():
                 cost += [abs(b[j, 1] - b[j, 0]) / 2 for j in range(3) if j not in sb]
                 best = min(best, max(cost))
     assert bottleneck_distance(a, b) == pytest.approx(best, abs=1e-12)
+    # A second case where gudhi 3.13's default mode also disagrees with
+    # enumeration (1.4210 there; 1.2276 here and by enumeration).
+    rng = np.random.default_rng(1)
+    b1, b2 = rng.uniform(0, 10, 3), rng.uniform(0, 10, 4)
+    a = np.column_stack([b1, b1 + rng.exponential(2, 3)])
+    b = np.column_stack([b2, b2 + rng.exponential(2, 4)])
+    assert bottleneck_distance(a, b) == pytest.approx(1.2276110250549355, abs=1e-12)
+    assert _bottleneck_by_assignment(a, b) == pytest.approx(1.2276110250549355, abs=1e-12)
 
 
 def test_essential_points_and_landscape():
