@@ -232,6 +232,28 @@ def _column_envelope(f, w, g, v, zz):
 
 
 @njit(cache=True, parallel=True)
+def _column_pass(vol, w):
+    """Envelopes along the last axis of ``vol`` (a transposed view), in place,
+    in parallel over the first axis."""
+    n_p, n_q, n = vol.shape
+    for i in prange(n_p):
+        f = np.empty(n)
+        g = np.empty(n)
+        v = np.empty(n, np.int64)
+        zz = np.empty(n + 1)
+        for j in range(n_q):
+            nonzero = False
+            for k in range(n):
+                f[k] = vol[i, j, k]
+                nonzero |= f[k] != 0.0
+            if not nonzero:
+                continue
+            _column_envelope(f, w, g, v, zz)
+            for k in range(n):
+                vol[i, j, k] = g[k]
+
+
+@njit(cache=True, parallel=True)
 def _edt_sq_3d(mask, sz, sy, sx):
     nz, ny, nx = mask.shape
     out = np.empty((nz, ny, nx), np.float32)
@@ -258,37 +280,9 @@ def _edt_sq_3d(mask, sz, sy, sx):
                         out[zi, yi, xi] = d * d
     # Pass 2 (y) and 3 (z): lower envelopes along columns.
     if ny > 1:
-        for zi in prange(nz):
-            f = np.empty(ny)
-            g = np.empty(ny)
-            v = np.empty(ny, np.int64)
-            zz = np.empty(ny + 1)
-            for xi in range(nx):
-                nonzero = False
-                for yi in range(ny):
-                    f[yi] = out[zi, yi, xi]
-                    nonzero |= f[yi] != 0.0
-                if not nonzero:
-                    continue
-                _column_envelope(f, sy, g, v, zz)
-                for yi in range(ny):
-                    out[zi, yi, xi] = g[yi]
+        _column_pass(out.transpose(0, 2, 1), sy)
     if nz > 1:
-        for yi in prange(ny):
-            f = np.empty(nz)
-            g = np.empty(nz)
-            v = np.empty(nz, np.int64)
-            zz = np.empty(nz + 1)
-            for xi in range(nx):
-                nonzero = False
-                for zi in range(nz):
-                    f[zi] = out[zi, yi, xi]
-                    nonzero |= f[zi] != 0.0
-                if not nonzero:
-                    continue
-                _column_envelope(f, sz, g, v, zz)
-                for zi in range(nz):
-                    out[zi, yi, xi] = g[zi]
+        _column_pass(out.transpose(1, 2, 0), sz)
     return out
 
 
