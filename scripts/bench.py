@@ -83,7 +83,9 @@ def bench_pipeline(size, tmp):
 def _peak_rss_of(code):
     """Run ``code`` in a fresh interpreter; return (seconds it printed, its peak RSS in MB)."""
     import subprocess
-    code += "; import resource; print(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss)"
+    # VmHWM (not ru_maxrss, which a child inherits from its parent across exec).
+    code += ("; print([l.split()[1] for l in open('/proc/self/status') "
+             "if l.startswith('VmHWM')][0])")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     lines = out.stdout.strip().splitlines()
     return float(lines[-2]), float(lines[-1]) / 1024
