@@ -197,30 +197,59 @@ def choose_root(graph, method="thickest", *, point=None, face=None, components="
 
 
 # ------------------------------------------------------------ spanning trees
-def count_spanning_trees(graph, log=True):
+#: Largest component (after dropping hanging trees) whose spanning trees are
+#: counted by default: an exact determinant of a 3D mesh Laplacian costs about
+#: n^2 (about 3 s at this size on 2 cores, 35 s at three times it).
+SPANNING_TREE_COUNT_LIMIT = 60_000
+
+
+def count_spanning_trees(graph, log=True, max_nodes=None):
     """Number of spanning trees of each component, by the matrix-tree theorem.
 
     Kirchhoff (1847): tau = det of the Laplacian with one row and column
     removed; parallel edges count separately, self-loops never.  Returns
     log(tau) summed over components when ``log`` (the count overflows quickly
     on real networks), else tau as a float.
+
+    Hanging trees are dropped first (a leaf and its edge are in every spanning
+    tree, so they do not change the count), and the reduced Laplacian, which
+    is symmetric positive definite, is factored without pivoting in a
+    symmetric minimum-degree order.  The cost still grows about as n^2 on 3D
+    networks; a component larger than ``max_nodes`` after the reduction
+    (default :data:`SPANNING_TREE_COUNT_LIMIT`) gives NaN.
     """
+    limit = SPANNING_TREE_COUNT_LIMIT if max_nodes is None else max_nodes
     n = graph.n_nodes
     u, v = graph.edges[:, 0], graph.edges[:, 1]
     keep = u != v
-    a = sparse.coo_matrix((np.ones(keep.sum()), (u[keep], v[keep])), shape=(n, n))
+    u, v = u[keep], v[keep]
+    # Peel leaves until none is left (the 2-core, plus isolated trees' roots).
+    alive = np.ones(len(u), bool)
+    while True:
+        deg = np.bincount(u[alive], minlength=n) + np.bincount(v[alive], minlength=n)
+        leaf = deg == 1
+        drop = alive & (leaf[u] | leaf[v])
+        if not drop.any():
+            break
+        alive &= ~drop
+    u, v = u[alive], v[alive]
+    a = sparse.coo_matrix((np.ones(len(u)), (u, v)), shape=(n, n))
     a = (a + a.T).tocsr()
     lap = (sparse.diags(np.asarray(a.sum(1)).ravel()) - a).tocsc()
-    labels = graph.component_labels()
+    used = np.zeros(n, bool)
+    used[u] = used[v] = True
+    _, labels = csgraph.connected_components(a, directed=False)
     total = 0.0
-    for c in range(graph.n_components):
-        idx = np.flatnonzero(labels == c)
+    for c in np.unique(labels[used]):
+        idx = np.flatnonzero((labels == c) & used)
         if len(idx) < 2:
             continue
-        # Sparse LU: log|det| is the sum of log|U_ii| (the reduced Laplacian is
-        # positive definite, so the determinant is positive).
+        if len(idx) - 1 > limit:
+            return float("nan")
+        # log det = sum of log U_ii (positive definite: no pivoting needed).
         sub = lap[idx][:, idx][1:, 1:].tocsc()
-        lu = splu(sub)
+        lu = splu(sub, permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0,
+                  options=dict(SymmetricMode=True))
         total += float(np.log(np.abs(lu.U.diagonal())).sum())
     return total if log else float(np.exp(total))
 

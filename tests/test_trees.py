@@ -368,6 +368,26 @@ def test_spanning_tree_count_matches_networkx():
     assert round(count_spanning_trees(_graph(nx.hypercube_graph(3)), log=False)) == 384
 
 
+def test_spanning_tree_count_with_hanging_trees_and_parallel_edges():
+    """Leaves are peeled before the determinant; the count still equals
+    networkx.number_of_spanning_trees on a multigraph (parallel edges count
+    apart) with trees hanging off its cycles and a separate tree component."""
+    rng = np.random.default_rng(4)
+    nxg = nx.MultiGraph(nx.grid_2d_graph(3, 4))
+    nxg.add_edge((0, 0), (0, 1))  # a parallel edge
+    nodes = list(nxg.nodes)
+    for i in range(8):  # hanging trees, some two levels deep
+        parent = nodes[rng.integers(len(nodes))]
+        nxg.add_edge(parent, ("leaf", i))
+        nodes.append(("leaf", i))
+    nxg.add_edges_from([("t", 0), ("t", 1), ("t", 2)])  # a tree component
+    g = _graph(nxg)
+    ref = np.prod([nx.number_of_spanning_trees(nxg.subgraph(c))
+                   for c in nx.connected_components(nxg)])
+    assert count_spanning_trees(g, log=False) == pytest.approx(ref, rel=1e-9)
+    assert np.isnan(count_spanning_trees(g, max_nodes=5))
+
+
 @pytest.mark.parametrize("name", ["lattice", "torus", "ring2d", "venation", "frame"])
 @pytest.mark.parametrize("method", ["shortest", "minimum", "widest", "random"])
 def test_spanning_trees_on_cyclic_phantoms(name, method):
