@@ -373,3 +373,41 @@ def branch_voxel_paths(order, bounds, first_att, last_att, pred):
             out[k] = x
             k += 1
     return out, offs
+
+
+@njit(cache=True)
+def cyclic_block_voxels(base, links, bshape):
+    """Voxels of 2x2x2 blocks whose links close a cycle (links >= voxels >= 3).
+
+    ``base`` holds padded (z, y, x) voxel coordinates (>= 1), ``bshape`` the
+    shape of the grid of block origins; counts are kept in dense uint8 grids,
+    touched only at the blocks of centreline voxels.
+    """
+    n = base.shape[0]
+    by, bx = bshape[1], bshape[2]
+    count = np.zeros(bshape[0] * by * bx, np.uint8)
+    lcount = np.zeros(bshape[0] * by * bx, np.uint8)
+    for i in range(n):
+        for c in range(8):
+            k = ((base[i, 0] - (c >> 2)) * by + base[i, 1] - ((c >> 1) & 1)) * bx \
+                + base[i, 2] - (c & 1)
+            count[k] += 1
+    for e in range(links.shape[0]):
+        a, b = links[e, 0], links[e, 1]
+        for c in range(8):
+            o0 = max(base[a, 0], base[b, 0]) - (c >> 2)
+            o1 = max(base[a, 1], base[b, 1]) - ((c >> 1) & 1)
+            o2 = max(base[a, 2], base[b, 2]) - (c & 1)
+            if o0 <= min(base[a, 0], base[b, 0]) and o1 <= min(base[a, 1], base[b, 1]) \
+                    and o2 <= min(base[a, 2], base[b, 2]):
+                k = (o0 * by + o1) * bx + o2
+                if count[k] >= 3:
+                    lcount[k] += 1
+    flagged = np.zeros(n, np.bool_)
+    for i in range(n):
+        for c in range(8):
+            k = ((base[i, 0] - (c >> 2)) * by + base[i, 1] - ((c >> 1) & 1)) * bx \
+                + base[i, 2] - (c & 1)
+            if count[k] >= 3 and lcount[k] >= count[k]:
+                flagged[i] = True
+    return flagged

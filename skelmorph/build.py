@@ -43,7 +43,7 @@ from ._version import __version__
 from .errors import InputError
 from .graph import SkeletonGraph
 from .io import check_image_array, normalise_unit, validate_spacing
-from ._kernels import branch_voxel_paths, walk_paths
+from ._kernels import branch_voxel_paths, cyclic_block_voxels, walk_paths
 from .polyline import polyline_lengths, smooth_polylines
 from .radius import equivalent_radius
 from .segment import as_bool_mask, check_mask, count_cavities, is_binary
@@ -125,45 +125,19 @@ def small_cycle_voxels(coords, links, shape):
     one block encloses no background: it is not a loop of the structure.
     Such voxels are made part of a junction node, where the cycle collapses.
     A block holds a cycle when its links are at least as many as its voxels
-    (at least three).  Voxel counts per block come from a dense 2x2(x2) sum;
-    links are then counted only in the few blocks with three or more voxels.
+    (at least three).  Counted per block by a numba kernel that touches only
+    the blocks of centreline voxels (a 2D image is a one-slice volume).
     """
     n, ndim = coords.shape
     if n == 0 or len(links) == 0:
         return np.zeros(n, bool)
-    corners = np.array(list(itertools.product((0, 1), repeat=ndim)))
-    base = coords.astype(np.int64) + 1  # padded coordinates; block origins run 0..shape
-    occ = np.zeros(np.asarray(shape) + 2, np.uint8)
-    occ[tuple(base.T)] = 1
-    nblock = np.asarray(shape) + 1
-    count = np.zeros(nblock, np.uint8)
-    for c in corners:
-        count += occ[tuple(slice(ci, ci + m) for ci, m in zip(c, nblock))]
-    busy = count >= 3
-    if not busy.any():
-        return np.zeros(n, bool)
-    # Links per busy block: origin = hi - corner must also be <= lo on every axis.
-    lo = np.minimum(base[links[:, 0]], base[links[:, 1]])
-    hi = np.maximum(base[links[:, 0]], base[links[:, 1]])
-    origins = []
-    for c in corners:
-        origin = hi - c
-        ok = np.all(origin <= lo, axis=1)
-        origin = origin[ok]
-        origins.append(origin[busy[tuple(origin.T)]])
-    origins = np.concatenate(origins)
-    blocks, lcount = np.unique(np.ravel_multi_index(tuple(origins.T), nblock), return_counts=True)
-    vcount = count.ravel()[blocks]
-    cyclic = np.column_stack(np.unravel_index(blocks[lcount >= vcount], nblock))
-    if len(cyclic) == 0:
-        return np.zeros(n, bool)
-    # Voxels of the cyclic blocks, back to indices into coords (sorted C order).
-    members = (cyclic[:, None, :] + corners[None]).reshape(-1, ndim)
-    members = members[occ[tuple(members.T)] == 1] - 1
-    lin = np.ravel_multi_index(tuple(coords.T), shape)
-    flagged = np.zeros(n, bool)
-    flagged[np.searchsorted(lin, np.ravel_multi_index(tuple(members.T), shape))] = True
-    return flagged
+    base = coords.astype(np.int64) + 1
+    shape = tuple(shape)
+    if ndim == 2:
+        base = np.column_stack([np.ones(n, np.int64), base])
+        shape = (1,) + shape
+    bshape = np.asarray(shape, np.int64) + 1
+    return cyclic_block_voxels(base, np.ascontiguousarray(links, np.int64), bshape)
 
 
 def euler_characteristic(coords, shape, labels=None):
@@ -627,16 +601,15 @@ def _merge_close_junctions(w):
     rep = rep_of_group[group]
     keep = np.flatnonzero(~close)
     new_u, new_v = rep[u[keep]], rep[v[keep]]
-    pts, rad = [], []
-    for e, a, b in zip(keep, new_u, new_v):
-        p, r = w.pts[e], w.rad[e]
-        if rep[u[e]] != u[e] or rep[v[e]] != v[e]:
-            p = p.copy()
-            r = r.copy()
-            p[0], p[-1] = w.node_pos[a], w.node_pos[b]
-            r[0], r[-1] = w.node_r[a], w.node_r[b]
-        pts.append(p)
-        rad.append(r)
+    pts = [w.pts[e] for e in keep.tolist()]
+    rad = [w.rad[e] for e in keep.tolist()]
+    moved = np.flatnonzero((new_u != u[keep]) | (new_v != v[keep]))
+    for i in moved.tolist():  # only the branches whose end node was merged away
+        a, b = new_u[i], new_v[i]
+        p, r = pts[i].copy(), rad[i].copy()
+        p[0], p[-1] = w.node_pos[a], w.node_pos[b]
+        r[0], r[-1] = w.node_r[a], w.node_r[b]
+        pts[i], rad[i] = p, r
     w.u, w.v, w.pts, w.rad = list(new_u), list(new_v), pts, rad
     return True
 
