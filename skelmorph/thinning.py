@@ -322,50 +322,49 @@ SLAB = 8
 PARALLEL_MIN = 4096
 
 
+@njit(cache=True, inline="always")
+def _level(d, binw2_inv, top):
+    """Distance bin of a squared distance (``top`` for no background at all)."""
+    if d == np.inf:
+        return top
+    lev = int(np.sqrt(d * binw2_inv))
+    return lev if lev < top else top
+
+
 @njit(cache=True)
 def _order_by_level(dsq, binw2_inv, nz, ny, nx):
-    """Object voxels (padded flat indices) sorted by distance bin, then index."""
-    n_obj = 0
-    max_level = 0
-    levels = np.empty(dsq.size, np.int32)
-    k = 0
+    """Object voxels (padded flat indices) sorted by distance bin, then index.
+
+    A counting sort in two passes over the distance map (no per-voxel level
+    array is kept).
+    """
+    top = 0
+    for zi in range(nz):
+        for yi in range(ny):
+            for xi in range(nx):
+                d = dsq[zi, yi, xi]
+                if d > 0.0 and d != np.inf:
+                    lev = int(np.sqrt(d * binw2_inv))
+                    if lev + 1 > top:
+                        top = lev + 1
+    counts = np.zeros(top + 2, np.int64)
     for zi in range(nz):
         for yi in range(ny):
             for xi in range(nx):
                 d = dsq[zi, yi, xi]
                 if d > 0.0:
-                    if d == np.inf:
-                        lev = 2**30
-                    else:
-                        lev = int(np.sqrt(d * binw2_inv))
-                    levels[k] = lev
-                    n_obj += 1
-                    if lev > max_level and lev < 2**30:
-                        max_level = lev
-                else:
-                    levels[k] = -1
-                k += 1
-    top = max_level + 1
-    counts = np.zeros(top + 2, np.int64)
-    for i in range(levels.size):
-        lev = levels[i]
-        if lev >= 0:
-            if lev >= top:
-                levels[i] = top
-                lev = top
-            counts[lev + 1] += 1
+                    counts[_level(d, binw2_inv, top) + 1] += 1
     for i in range(1, top + 2):
         counts[i] += counts[i - 1]
     starts = counts.copy()
-    order = np.empty(n_obj, np.int64)
+    order = np.empty(counts[top + 1], np.int64)
     py, px = ny + 2, nx + 2
-    k = 0
     for zi in range(nz):
         for yi in range(ny):
             for xi in range(nx):
-                lev = levels[k]
-                k += 1
-                if lev >= 0:
+                d = dsq[zi, yi, xi]
+                if d > 0.0:
+                    lev = _level(d, binw2_inv, top)
                     order[counts[lev]] = ((zi + 1) * py + (yi + 1)) * px + (xi + 1)
                     counts[lev] += 1
     return order, starts
