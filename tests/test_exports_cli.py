@@ -72,7 +72,8 @@ def test_cli_analyze_writes_results(tmp_path, capsys):
     assert summary["spacing"] == [2.0, 1.0, 1.0] and summary["unit"] == "um"
     rows = (tmp_path / "r" / "branches.csv").read_text().splitlines()
     assert rows[0].split(",") == ["branch", "node_a", "node_b", "length", "chord", "tortuosity",
-                                  "radius_mean", "radius_min", "radius_max", "kind"]
+                                  "radius_mean", "radius_min", "radius_max", "radius_equivalent",
+                                  "kind"]
     assert len(rows) == 4 and all(r.endswith("terminal") for r in rows[1:])
 
 

@@ -15,7 +15,10 @@ def branch_table(graph):
     Columns: ``branch``, ``node_a``, ``node_b`` (end nodes), ``length``
     (smoothed centreline), ``chord`` (straight distance between the ends),
     ``tortuosity`` (length / chord; empty for rings), ``radius_mean``
-    (length-weighted), ``radius_min``, ``radius_max`` and ``kind``:
+    (length-weighted mean of the point radii), ``radius_min``, ``radius_max``,
+    ``radius_equivalent`` (the volume-equivalent branch radius of
+    :mod:`skelmorph.radius`, unbiased at a few voxels; empty for branches too
+    short to have one) and ``kind``:
     ``terminal`` (tip to junction), ``internal`` (junction to junction),
     ``isolated`` (tip to tip) or ``ring`` (a loop from a node to itself).
     Lengths and radii are in ``graph.unit``.
@@ -34,6 +37,9 @@ def branch_table(graph):
         "radius_mean": mean,
         "radius_min": rmin,
         "radius_max": rmax,
+        "radius_equivalent": (graph.edge_radius if graph.edge_radius is not None
+                              and len(graph.edge_radius) == graph.n_edges
+                              else np.full(graph.n_edges, np.nan)),
         "kind": graph.edge_kind,
     }
 
