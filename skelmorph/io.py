@@ -416,6 +416,21 @@ def read_image(path, spacing=None, unit=None, channel=None):
 
 # --------------------------------------------------------------------------- writing
 
+def _current_umask():
+    """The process's umask: from /proc where there is one (no race with other
+    threads), else by setting it and putting it back."""
+    try:
+        with open("/proc/self/status", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith("Umask:"):
+                    return int(line.split()[1], 8)
+    except OSError:
+        pass
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
 @contextlib.contextmanager
 def atomic_path(path):
     """Yield a temporary path beside ``path``; rename it over ``path`` on success.
@@ -426,6 +441,9 @@ def atomic_path(path):
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    # mkstemp creates the file private (0600); give it the mode a plain open()
+    # would, so outputs respect the process's umask.
+    os.chmod(fd, 0o666 & ~_current_umask())
     os.close(fd)
     try:
         yield Path(tmp)

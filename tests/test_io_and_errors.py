@@ -1,5 +1,7 @@
 """Reading images, voxel sizes, and every kind of bad input."""
 
+import os
+
 import numpy as np
 import pytest
 import tifffile
@@ -170,3 +172,19 @@ def test_grey_image_is_thresholded_and_cleaned():
     assert np.count_nonzero(mask ^ p.mask) < 0.01 * p.mask.sum()
     dark = sm.to_mask(255 - grey, dark=True)
     assert np.array_equal(dark, mask)
+
+
+@pytest.mark.parametrize("umask, expected", [(0o022, 0o644), (0o077, 0o600), (0o002, 0o664)])
+def test_written_files_respect_umask(tmp_path, umask, expected):
+    """Atomic writes give files the mode a plain open() would (POSIX: 0666
+    minus the umask), not the private mode of their temporary file."""
+    import stat
+    from skelmorph.io import write_csv, write_json
+    old = os.umask(umask)
+    try:
+        write_json(tmp_path / "s.json", {"a": 1})
+        write_csv(tmp_path / "t.csv", {"x": np.arange(3)})
+    finally:
+        os.umask(old)
+    for name in ("s.json", "t.csv"):
+        assert stat.S_IMODE((tmp_path / name).stat().st_mode) == expected
