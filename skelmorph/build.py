@@ -3,26 +3,30 @@
 Steps (every one vectorised over voxels; Python loops run only over the few
 nodes that pruning changes):
 
-1. Thin the mask (:mod:`skelmorph.skeleton`).
+1. Thin the mask (:mod:`skelmorph.thinning`, or scikit-image's thinning
+   via :mod:`skelmorph.skeleton`).
 2. Find the 26- (8-) neighbours of every centreline voxel by binary search on
    sorted linear indices, dropping *redundant* diagonal links: a link whose
    two voxels are also joined through a face-neighbour path of the skeleton.
    Without this, every staircase corner would look like a junction.
 3. Classify voxels by neighbour count: tips (1), path voxels (2), junction
-   voxels (>= 3).  Touching junction voxels form one node.
-4. Order the path voxels of every branch at once with a single depth-first
-   traversal from a virtual source joined to one end of every branch.
-5. Radii: exact Euclidean distance from each centreline point to the nearest
-   background voxel centre, by searching neighbour offsets in order of
-   distance (a KD-tree finishes the rare thick points), so no full-volume
-   distance transform is needed.
+   voxels (>= 3).  Touching junction voxels form one node, placed on the
+   cluster voxel nearest the cluster's centroid.
+4. Order the path voxels of every branch with a linear walk along each chain;
+   inside a junction cluster a branch continues through the cluster's voxels
+   to its node voxel (shortest paths), so no polyline jumps.
+5. Radii: read from the thinning's distance map (scikit-image's thinning:
+   exact nearest-background search by distance shells, a KD-tree for the
+   rare thick points); per branch, the volume-equivalent radius
+   (:mod:`skelmorph.radius`).
 6. Loop check: thinning preserves the Euler characteristic, so the graph
    must have components + cavities - chi loops; tiny voxel cycles beyond
    that are removed.
-7. Clean-up, repeated until stable: contract edges joining two junctions
-   closer than the sum of their radii; prune terminal spurs shorter than
-   ``prune_factor`` x the junction radius (or ``min_branch_length``);
-   dissolve nodes left with two edges.
+7. Clean-up, repeated until stable: contract edges of at most
+   ``MERGE_MAX_VOXELS`` voxels joining two junctions closer than the sum of
+   their radii; prune terminal spurs shorter than ``prune_factor`` x the
+   junction radius (or ``min_branch_length``); dissolve nodes left with two
+   edges.
 8. Smooth every polyline (ends fixed) and measure its length.
 """
 

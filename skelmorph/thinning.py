@@ -34,11 +34,12 @@ Simple points
     image is thinned as a one-slice volume, where this test is the 8/4 test
     of the plane.
 Parallel and deterministic
-    Each directional sub-pass is split into the 2**d parity classes of the
-    voxel grid (subfields).  Voxels of one class are never neighbours, so
-    their tests are independent: they run in parallel (numba ``prange``),
-    and deleting all the simple ones at once equals deleting them one by
-    one.  The result does not depend on the number of threads.
+    Each directional sub-pass tests its candidates slab by slab (``SLAB``
+    planes along the first axis with more than one plane), in index order
+    within a slab: even slabs in parallel (numba ``prange``), then odd ones.
+    Slabs that are not consecutive share no 26-neighbourhood, so this equals
+    one fixed sequential order, and the result does not depend on the number
+    of threads (tested).  Small sweeps run on one thread.
 
 References
 ----------
@@ -445,7 +446,7 @@ def _sweep_slabs(img, cand, slab_start, n_slabs, action, noff, adj26, adj6, n18,
 
 @njit(cache=True)
 def _thin_kernel(img, order, starts, slab_of_plane, plane, noff, dirs, adj26, adj6, n18, face,
-                 dist, step_len, py, px, ny, nx):
+                 dist, step_len, py, px, ny, nx, par_min):
     """Distance-ordered thinning of ``img`` (padded uint8 flags) in place.
 
     ``plane`` is the stride of the slab axis; ``slab_of_plane`` maps a
@@ -496,7 +497,7 @@ def _thin_kernel(img, order, starts, slab_of_plane, plane, noff, dirs, adj26, ad
                     while sl_prev < sl:
                         sl_prev += 1
                         slab_start[sl_prev] = i
-                if m >= PARALLEL_MIN:
+                if m >= par_min:
                     _sweep_slabs(img, cand, slab_start, n_slabs, action, noff, adj26, adj6,
                                  n18, face, memo, dist, step_len, py, px, ny, nx)
                 else:  # the same order, one slab after the other (no thread start-up)
@@ -590,6 +591,7 @@ def thin(mask, spacing=None, *, dsq=None):
                                max((n_planes - 3) // SLAB, 0)).astype(np.int64)
     step_len = np.sqrt(((_OFFS * np.asarray(sp3)) ** 2).sum(axis=1))
     _thin_kernel(img.ravel(), order, starts, slab_of_plane, plane, noff, dirs, _ADJ26, _ADJ6,
-                 _N18, _FACE, np.ascontiguousarray(dsq3).ravel(), step_len, py, px, ny, nx)
+                 _N18, _FACE, np.ascontiguousarray(dsq3).ravel(), step_len, py, px, ny, nx,
+                 PARALLEL_MIN)
     out = (img[1:-1, 1:-1, 1:-1] & PRESENT).astype(bool)
     return out[0] if ndim == 2 else out

@@ -88,10 +88,25 @@ def test_thinning_preserves_topology(seed, fill, ndim, aniso):
 
 
 def test_thinning_is_thin_and_deterministic():
+    import numba
+
+    from skelmorph import thinning
     ph = sm.phantoms.foam(size=40.0, cell=12.0, rod_radius=2.0, seed=3)
     a = thin(ph.mask)
     b = thin(ph.mask.copy())
     assert np.array_equal(a, b)
+    # The same result on one thread and on all, with every sweep parallel.
+    threads, par_min = numba.get_num_threads(), thinning.PARALLEL_MIN
+    try:
+        thinning.PARALLEL_MIN = 0
+        numba.set_num_threads(1)
+        one = thin(ph.mask)
+        numba.set_num_threads(numba.config.NUMBA_NUM_THREADS)
+        many = thin(ph.mask)
+    finally:
+        numba.set_num_threads(threads)
+        thinning.PARALLEL_MIN = par_min
+    assert np.array_equal(one, a) and np.array_equal(many, a)
     # No 2x2x2 block is full (a one-voxel-wide result).
     blocks = sum(a[i:a.shape[0] - 1 + i, j:a.shape[1] - 1 + j, k:a.shape[2] - 1 + k].astype(int)
                  for i in (0, 1) for j in (0, 1) for k in (0, 1))
