@@ -35,9 +35,23 @@ def _parser():
     a.add_argument("--quiet", "-q", action="store_true", help="no progress bar")
     a.add_argument("--channel", default=None,
                    help="colour images: channel index (0, 1, 2) or 'grey'")
+    a.add_argument("--roi", default=None, metavar="FILE|auto",
+                   help="region of interest: a mask image of the same shape, or 'auto' (the "
+                        "field of view of a grey image, the filled outline of a binary one); "
+                        "all measures use it as the reference volume (default: whole image)")
     g = a.add_argument_group("segmentation (grey images)")
-    g.add_argument("--threshold", type=float, help="grey level threshold (default: Otsu)")
+    g.add_argument("--threshold", type=float,
+                   help="grey level threshold, or of the enhanced image (default: Otsu in the ROI)")
     g.add_argument("--dark", action="store_true", help="structure is darker than background")
+    g.add_argument("--smooth", type=float, default=None, metavar="SIGMA",
+                   help="Gaussian smoothing before thresholding, sigma in the image unit")
+    g.add_argument("--enhance", choices=["vessels"], default=None,
+                   help="threshold a multi-scale line filter (Sato) instead of grey levels")
+    g.add_argument("--scales", type=float, nargs=2, metavar=("MIN", "MAX"), default=None,
+                   help="with --enhance: smallest and largest filter scale, image unit "
+                        "(default 1 to 4 voxels)")
+    g.add_argument("--hysteresis", nargs="+", default=None, metavar="LEVEL",
+                   help="hysteresis thresholding: 'auto' or LOW HIGH")
     g.add_argument("--min-object-size", type=float, metavar="SIZE",
                    help="remove specks up to this area/volume (unit^d)")
     g.add_argument("--max-hole-size", type=float, metavar="SIZE",
@@ -59,8 +73,6 @@ def _parser():
     m.add_argument("--measures", nargs="+", choices=["bone", "vessel", "venation", "all"],
                    help="add the bone standard set (3D), vessel measures, leaf venation "
                         "measures (2D), or all that apply")
-    m.add_argument("--region", default=None, metavar="FILE",
-                   help="venation: lamina mask image (default: the network's filled outline)")
     m.add_argument("--thickness-map", action="store_true",
                    help="bone: also write thickness.tif and separation.tif (diameters)")
     from .descriptors.barcode import FILTRATIONS
@@ -141,6 +153,21 @@ def _parser():
     return p
 
 
+def _hysteresis(values):
+    if values is None:
+        return None
+    if values == ["auto"]:
+        return "auto"
+    try:
+        levels = [float(v) for v in values]
+    except ValueError:
+        levels = []
+    if len(levels) != 2:
+        raise SkelmorphError("--hysteresis takes 'auto' or two levels LOW HIGH, not "
+                             + " ".join(values))
+    return tuple(levels)
+
+
 def _cmd_analyze(args):
     from .pipeline import analyze
 
@@ -154,6 +181,8 @@ def _cmd_analyze(args):
     result = analyze(args.image, spacing=args.spacing, unit=args.unit, channel=channel,
                      threshold=args.threshold, dark=args.dark,
                      min_object_size=args.min_object_size, max_hole_size=args.max_hole_size,
+                     smooth=args.smooth, enhance=args.enhance, scales=args.scales,
+                     hysteresis=_hysteresis(args.hysteresis), roi=args.roi,
                      prune=not args.no_prune, prune_factor=args.prune_factor,
                      min_branch_length=args.min_branch_length, extend_tips=args.extend_tips,
                      thinning=args.thinning,
@@ -162,7 +191,7 @@ def _cmd_analyze(args):
                      filtration=args.filtration, seed=args.seed,
                      root_point=args.root_point, root_face=args.root_face,
                      n_radii=args.radii, paths=args.paths, measures=args.measures,
-                     region=args.region, thickness_map=args.thickness_map,
+                     thickness_map=args.thickness_map,
                      out=out, progress=not args.quiet)
     if args.report:
         from .report.html import write_sample_report
@@ -176,6 +205,9 @@ def _cmd_analyze(args):
     print(f"  components       {s['n_components']}")
     print(f"  loops            {s['cycle_rank']}")
     print(f"  mean radius      {s['mean_radius']:.4g} {u}")
+    if s["roi"]["source"] != "whole image":
+        print(f"  ROI              {s['roi']['source']}, {s['roi']['volume']:.4g} {u}^"
+              f"{len(s['image_shape'])} ({s['roi']['fraction_of_image']:.0%} of the image)")
     if "barcode_n_bars" in s:
         print(f"  barcode          {s['barcode_n_bars']:.4g} bars, total persistence "
               f"{s['barcode_total_persistence']:.4g} {u} ({s['tree_method']} tree, "

@@ -13,8 +13,8 @@ from scipy import ndimage as ndi
 from .errors import InputError
 from .io import check_image_array, validate_spacing
 
-__all__ = ["is_binary", "as_bool_mask", "to_mask", "check_mask", "remove_specks", "fill_holes",
-           "count_cavities"]
+__all__ = ["is_binary", "as_bool_mask", "to_mask", "segment_image", "enhance_vessels",
+           "check_mask", "remove_specks", "fill_holes", "count_cavities"]
 
 # Default cleaning for grey input, in voxels: a speck or hole of at most 3**ndim
 # voxels (one 3x3(x3) block) is noise at any sensible resolution.
@@ -118,8 +118,186 @@ def fill_holes(mask, max_voxels):
     return mask | (enclosed & (sizes <= max_voxels))[labels]
 
 
+ENHANCE_METHODS = ("vessels",)
+
+
+def _scale_sigmas(scales, spacing):
+    """Gaussian scales (physical) -> sigmas in voxels of the finest axis, at
+    most six, one voxel apart or more."""
+    lo, hi = (float(v) for v in scales)
+    if not (np.isfinite(lo) and np.isfinite(hi)) or lo <= 0 or hi < lo:
+        raise InputError(f"--scales must be two positive sizes, MIN <= MAX; got {lo:g} {hi:g}")
+    step = float(min(spacing))
+    lo, hi = lo / step, hi / step
+    n = int(min(6, max(1, np.floor(hi - lo) + 1)))
+    return np.linspace(lo, hi, n)
+
+
+def enhance_vessels(image, spacing, scales=None, dark=False):
+    """Multi-scale ridge (vesselness) filter: Sato's line filter.
+
+    Sato Y, Nakajima S, Shiraga N, Atsumi H, Yoshida S, Koller T, Gerig G,
+    Kikinis R (1998). Three-dimensional multi-scale line filter for
+    segmentation and visualization of curvilinear structures in medical
+    images. Med Image Anal 2:143-168; scikit-image's ``filters.sato``.
+
+    Parameters
+    ----------
+    image : ndarray (2D or 3D grey)
+    spacing : sequence of float
+    scales : (min, max), physical units, optional
+        Range of the Gaussian scales; it should span the radii of the
+        vessels to keep.  Default one to four voxels of the finest axis.
+    dark : bool
+        Vessels darker than their surround.
+
+    Returns
+    -------
+    response : float32 array, >= 0, large on tubes.
+
+    Notes
+    -----
+    With anisotropic voxels the image is resampled to isotropic voxels of
+    the finest axis (linear), filtered, and sampled back.
+    """
+    from skimage.filters import sato
+
+    spacing = np.asarray(spacing, float)
+    if scales is None:
+        scales = (spacing.min(), 4 * spacing.min())
+    sigmas = _scale_sigmas(scales, spacing)
+    image = np.asarray(image, np.float32)
+    zoom = spacing / spacing.min()
+    if np.allclose(zoom, 1):
+        return sato(image, sigmas=sigmas, black_ridges=dark).astype(np.float32)
+    fine = ndi.zoom(image, zoom, order=1, grid_mode=True, mode="nearest")
+    response = sato(fine, sigmas=sigmas, black_ridges=dark).astype(np.float32)
+    coords = np.meshgrid(*[(np.arange(n) + 0.5) * z - 0.5 for n, z in zip(image.shape, zoom)],
+                         indexing="ij", sparse=True)
+    coords = np.broadcast_arrays(*coords)
+    return ndi.map_coordinates(response, coords, order=1, mode="nearest").astype(np.float32)
+
+
+def _hysteresis_levels(hysteresis, score, high, roi):
+    if isinstance(hysteresis, str):
+        if hysteresis != "auto":
+            raise InputError(f"hysteresis must be 'auto' or two levels, not {hysteresis!r}")
+        inside = score[roi] if roi is not None else score
+        base = float(np.median(inside))
+        return base + 0.5 * (high - base), high
+    low, high = (float(v) for v in hysteresis)
+    if low > high:
+        raise InputError(f"hysteresis levels must be LOW <= HIGH; got {low:g} {high:g}")
+    return low, high
+
+
+def segment_image(image, spacing=None, *, threshold=None, dark=False, smooth=None,
+                  enhance=None, scales=None, hysteresis=None, roi=None,
+                  min_object_size=None, max_hole_size=None):
+    """Turn a binary or grey image into a clean boolean mask, saying what was done.
+
+    Parameters are those of :func:`to_mask`.
+
+    Returns
+    -------
+    mask : bool array
+    steps : list of dict
+        Every step that changed the data, in order, with its settings and
+        values (for a methods section).
+    """
+    image = check_image_array(image)
+    spacing = validate_spacing(1.0 if spacing is None else spacing, image.ndim)
+    if roi is not None:
+        roi = np.asarray(roi, bool)
+        if roi.shape != image.shape:
+            raise InputError(f"the ROI has shape {roi.shape} but the image has {image.shape}; "
+                             "they must match")
+    steps = []
+    binary = is_binary(image)
+    if binary and (smooth or enhance or hysteresis is not None):
+        raise InputError("the image is already binary: --smooth, --enhance and --hysteresis "
+                         "apply to grey images only")
+    if binary:
+        mask = as_bool_mask(image)
+        mask = ~mask if dark else mask.copy()
+        steps.append({"step": "binary input", "structure": "low value" if dark else "high value"})
+    else:
+        score = np.asarray(image, np.float32)
+        if smooth:
+            sigma = float(smooth)
+            if not np.isfinite(sigma) or sigma < 0:
+                raise InputError(f"--smooth must be a positive size, not {smooth!r}")
+            score = ndi.gaussian_filter(score, sigma / np.asarray(spacing, float))
+            steps.append({"step": "gaussian smoothing", "sigma": sigma})
+        bright = not dark
+        if enhance is not None:
+            if enhance not in ENHANCE_METHODS:
+                raise InputError(f"unknown enhancement {enhance!r}; choose from "
+                                 f"{', '.join(ENHANCE_METHODS)}")
+            score = enhance_vessels(score, spacing, scales, dark=dark)
+            sig = _scale_sigmas(scales, spacing) * min(spacing) if scales is not None else \
+                np.linspace(1, 4, 4) * min(spacing)
+            steps.append({"step": "vessel enhancement",
+                          "filter": "Sato multi-scale line filter (scikit-image sato)",
+                          "scales": [float(v) for v in sig], "dark_vessels": bool(dark)})
+            bright = True  # the response is high on the structure
+        inside = score[roi] if roi is not None else score.ravel()
+        if threshold is None:
+            from skimage.filters import threshold_otsu
+            threshold = float(threshold_otsu(inside))
+            how = "Otsu" + (" inside the ROI" if roi is not None else "")
+        else:
+            how = "given"
+        if hysteresis is not None:
+            from skimage.filters import apply_hysteresis_threshold
+            s = score if bright else -score
+            low, high = _hysteresis_levels(hysteresis, s, threshold if bright else -threshold,
+                                           roi)
+            mask = apply_hysteresis_threshold(s, low, high)
+            if not bright:
+                low, high = -low, -high
+            steps.append({"step": "hysteresis threshold", "low": low, "high": high,
+                          "high_from": how, "structure": "above" if bright else "below"})
+        else:
+            mask = score > threshold if bright else score < threshold
+            steps.append({"step": "threshold", "value": float(threshold), "method": how,
+                          "structure": "above" if bright else "below"})
+        fraction = float(np.count_nonzero(mask[roi] if roi is not None else mask)) / max(
+            1, inside.size)
+        steps[-1]["foreground_fraction"] = fraction
+    if roi is not None:
+        mask = np.asarray(mask, bool) & roi
+        steps.append({"step": "clip to ROI"})
+    default = _DEFAULT_CLEAN_VOXELS[image.ndim]
+    speck = (_voxel_count(min_object_size, spacing) if min_object_size is not None
+             else (0 if binary else default))
+    hole = (np.inf if max_hole_size is not None and np.isinf(max_hole_size)
+            else _voxel_count(max_hole_size, spacing) if max_hole_size is not None
+            else (0 if binary else default))
+    mask = np.asarray(mask, dtype=bool)
+    voxel = float(np.prod(spacing))
+    if speck:
+        before = int(np.count_nonzero(mask))
+        mask = remove_specks(mask, speck)
+        steps.append({"step": "speck removal", "max_size": speck * voxel, "max_voxels": speck,
+                      "voxels_removed": before - int(np.count_nonzero(mask))})
+    if hole:
+        before = int(np.count_nonzero(mask))
+        mask = fill_holes(mask, hole)
+        if roi is not None:
+            mask &= roi
+        steps.append({"step": "hole filling",
+                      "max_size": float(hole * voxel) if np.isfinite(hole) else "all",
+                      "voxels_filled": int(np.count_nonzero(mask)) - before})
+    if roi is not None and not mask.any():
+        raise InputError("the ROI holds none of the segmented structure; check the ROI "
+                         "or the threshold (--dark)")
+    return check_mask(mask), steps
+
+
 def to_mask(image, spacing=None, *, threshold=None, dark=False,
-            min_object_size=None, max_hole_size=None):
+            min_object_size=None, max_hole_size=None, smooth=None, enhance=None,
+            scales=None, hysteresis=None, roi=None):
     """Turn a binary or grey image into a clean boolean mask.
 
     Parameters
@@ -129,8 +307,10 @@ def to_mask(image, spacing=None, *, threshold=None, dark=False,
     spacing : sequence of float, optional
         Voxel size; used to convert the physical sizes below.  Default 1.
     threshold : float, optional
-        Grey level separating structure from background.  Default: Otsu's
-        method (Otsu 1979, IEEE Trans Syst Man Cybern 9:62) via scikit-image.
+        Grey level separating structure from background (of the enhanced
+        image with ``enhance``).  Default: Otsu's method (Otsu 1979, IEEE
+        Trans Syst Man Cybern 9:62) via scikit-image, on the voxels of the
+        ROI when one is given.
     dark : bool
         The structure is darker than the background (e.g. vessels in a fundus
         photograph).
@@ -142,6 +322,22 @@ def to_mask(image, spacing=None, *, threshold=None, dark=False,
         Enclosed background components with at most this physical size are
         filled.  Same default as ``min_object_size``; ``np.inf`` fills all
         enclosed cavities.
+    smooth : float, optional
+        Gaussian smoothing of a grey image before anything else, sigma in
+        physical units.
+    enhance : {'vessels'}, optional
+        Threshold a multi-scale line filter's response instead of the grey
+        levels (:func:`enhance_vessels`).
+    scales : (min, max), optional
+        Scales of the enhancement, physical units.
+    hysteresis : 'auto' or (low, high), optional
+        Hysteresis thresholding (Canny 1986, IEEE Trans PAMI 8:679): keep
+        regions above ``low`` that touch a voxel above ``high``.  ``'auto'``
+        takes the threshold as ``high`` and the level halfway from the median
+        to it as ``low``.
+    roi : bool array, optional
+        Region of interest: the threshold is computed inside it and the mask
+        is clipped to it.
 
     Returns
     -------
@@ -152,26 +348,6 @@ def to_mask(image, spacing=None, *, threshold=None, dark=False,
     InputError
         NaN values, wrong dimensionality, or an empty / all-foreground result.
     """
-    image = check_image_array(image)
-    spacing = validate_spacing(1.0 if spacing is None else spacing, image.ndim)
-    binary = is_binary(image)
-    if binary:
-        mask = as_bool_mask(image)
-        mask = ~mask if dark else mask.copy()
-    else:
-        if threshold is None:
-            from skimage.filters import threshold_otsu
-            threshold = float(threshold_otsu(np.asarray(image)))
-        mask = image < threshold if dark else image > threshold
-    default = _DEFAULT_CLEAN_VOXELS[image.ndim]
-    speck = (_voxel_count(min_object_size, spacing) if min_object_size is not None
-             else (0 if binary else default))
-    hole = (np.inf if max_hole_size is not None and np.isinf(max_hole_size)
-            else _voxel_count(max_hole_size, spacing) if max_hole_size is not None
-            else (0 if binary else default))
-    mask = np.asarray(mask, dtype=bool)
-    if speck:
-        mask = remove_specks(mask, speck)
-    if hole:
-        mask = fill_holes(mask, hole)
-    return check_mask(mask)
+    return segment_image(image, spacing, threshold=threshold, dark=dark, smooth=smooth,
+                         enhance=enhance, scales=scales, hysteresis=hysteresis, roi=roi,
+                         min_object_size=min_object_size, max_hole_size=max_hole_size)[0]

@@ -242,7 +242,7 @@ def test_venation_grid(cells, spurs):
     pad = 6 + 4  # margin + half the midrib width (phantom defaults)
     region[pad:pad + 40 * cells[0] + 1, pad:pad + 40 * cells[1] + 1] = True
     rr = venation_measures(g, ph.mask, ph.spacing, region=region)
-    assert rr["lamina_source"] == "region"
+    assert rr["lamina_source"] == "region of interest"
     expected = ph.truth["axis_length"] / ph.truth["lamina_area"]
     # Thinned veinlets stop about one half-width short of their drawn tips
     # (dossier 4.1), so each spur costs a few pixels: 4 % with 6 spurs.

@@ -15,6 +15,10 @@ Columns (header names are case-insensitive):
     empty means "from the file".
 ``unit`` (optional)
     Length unit of ``spacing`` (default um).
+``roi`` (optional)
+    The sample's region of interest: a mask image (path as for ``path``) or
+    ``auto`` (see :mod:`skelmorph.roi`); empty means the options' ROI, or
+    the whole image.
 
 Other columns are kept as sample metadata.
 """
@@ -45,6 +49,7 @@ class Sample:
     spacing: tuple | None = None
     unit: str | None = None
     meta: dict = field(default_factory=dict)
+    roi: object = None
 
 
 def _parse_spacing(text):
@@ -114,8 +119,19 @@ def read_manifest(path):
             problems.append(f"{where}: sample {sid!r}: bad spacing {row.get('spacing')!r} "
                             "(one or 2-3 positive numbers separated by spaces)")
             spacing = None
-        meta = {k: v for k, v in row.items() if k not in ("sample", "path", "group", "spacing", "unit")}
-        samples.append(Sample(sid, p, row.get("group", ""), spacing, row.get("unit") or None, meta))
+        roi = row.get("roi") or None
+        if roi is not None and roi.lower() == "auto":
+            roi = "auto"
+        elif roi is not None:
+            roi = Path(roi)
+            if not roi.is_absolute():
+                roi = (path.parent / roi).resolve()
+            if not roi.exists():
+                problems.append(f"{where}: sample {sid!r}: ROI file {roi} does not exist")
+        meta = {k: v for k, v in row.items()
+                if k not in ("sample", "path", "group", "spacing", "unit", "roi")}
+        samples.append(Sample(sid, p, row.get("group", ""), spacing, row.get("unit") or None, meta,
+                              roi))
     if problems:
         raise ManifestError(f"manifest {path} has {len(problems)} problem(s):\n  "
                             + "\n  ".join(problems))

@@ -32,7 +32,8 @@ __all__ = ["run_cohort", "load_options", "ANALYZE_OPTIONS", "RunReport", "collec
 
 #: Options of :func:`skelmorph.analyze` that a cohort options file may set.
 ANALYZE_OPTIONS = {
-    "channel", "threshold", "dark", "min_object_size", "max_hole_size", "prune", "prune_factor",
+    "channel", "threshold", "dark", "min_object_size", "max_hole_size", "smooth", "enhance",
+    "scales", "hysteresis", "roi", "prune", "prune_factor",
     "min_branch_length", "extend_tips", "smoothing", "merge_junctions", "thinning", "root", "tree",
     "n_trees", "filtration", "seed", "root_point", "root_face", "n_radii", "paths",
     "measures", "thickness_map", "figures",
@@ -97,8 +98,12 @@ def _content_hash(path, previous=None):
 
 
 def _cache_key(sample, content, options):
+    roi = sample.roi
+    if roi is not None and roi != "auto":
+        roi = _content_hash(roi)[0]  # the ROI's bytes, not its name
     blob = json.dumps({"content": content, "spacing": sample.spacing, "unit": sample.unit,
-                       "options": options, "version": __version__}, sort_keys=True, default=str)
+                       "roi": roi, "options": options, "version": __version__},
+                      sort_keys=True, default=str)
     return hashlib.sha256(blob.encode()).hexdigest()
 
 
@@ -123,6 +128,8 @@ def _analyze_one(sample, options, out, key, stats):
         from ..pipeline import analyze
         opts = dict(options)
         opts.setdefault("figures", False)
+        if sample.roi is not None:
+            opts["roi"] = str(sample.roi)
         analyze(sample.path, spacing=sample.spacing, unit=sample.unit, out=tmp, progress=False,
                 **opts)
         write_json(tmp / "done.json", {"key": key, "content": stats[0], "stats": stats[1],

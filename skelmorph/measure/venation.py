@@ -33,11 +33,11 @@ def lamina_mask(veins, region=None):
         region = region.astype(bool)
         if not region.any():
             raise InputError("the region mask is empty")
-        return region, "region"
+        return region, "region of interest"
     return ndi.binary_fill_holes(veins), "network outline"
 
 
-def venation_measures(graph, veins, spacing, unit="um", region=None):
+def venation_measures(graph, veins, spacing, unit="um", region=None, origin=None):
     """Vein length per area, areoles, free-ending veinlets and loop density.
 
     Parameters
@@ -47,7 +47,11 @@ def venation_measures(graph, veins, spacing, unit="um", region=None):
         The segmented veins.
     spacing : (2,) float
     region : bool array, optional
-        The lamina; default the vein network's filled outline.
+        The lamina (the region of interest); default the vein network's
+        filled outline.
+    origin : (2,) int, optional
+        Voxel index of ``veins[0, 0]`` in the image the graph's coordinates
+        refer to (when the arrays are a crop of it).
 
     Returns
     -------
@@ -66,12 +70,13 @@ def venation_measures(graph, veins, spacing, unit="um", region=None):
         raise InputError(f"venation measures need a 2D image; this one is {veins.ndim}D")
     spacing = np.asarray(spacing, float)
     pixel = float(np.prod(spacing))
+    shift = np.zeros(2) if origin is None else np.asarray(origin, float) * spacing
     lamina, source = lamina_mask(veins, region)
     area = float(np.count_nonzero(lamina)) * pixel
     # Vein length inside the lamina: polyline segments whose midpoint is inside.
     from ..polyline import edge_index
     eid = edge_index(graph.offsets)
-    pts = graph.points
+    pts = graph.points - shift
     same = eid[1:] == eid[:-1]
     mid = 0.5 * (pts[1:] + pts[:-1])
     idx = np.clip(np.round(mid / spacing).astype(int), 0, np.array(veins.shape) - 1)
@@ -91,7 +96,7 @@ def venation_measures(graph, veins, spacing, unit="um", region=None):
     # Free-ending veinlets: tips well inside the lamina.
     depth = ndi.distance_transform_edt(np.pad(lamina, 1), sampling=spacing)[1:-1, 1:-1]
     tips = np.flatnonzero(graph.node_degree == 1)
-    t_idx = np.clip(np.round(graph.nodes[tips] / spacing).astype(int), 0, np.array(veins.shape) - 1)
+    t_idx = np.clip(np.round((graph.nodes[tips] - shift) / spacing).astype(int), 0, np.array(veins.shape) - 1)
     inner = depth[t_idx[:, 0], t_idx[:, 1]] > graph.node_radius[tips] + 2 * spacing.max()
     return {
         "VLA": length / area if area > 0 else float("nan"),

@@ -221,7 +221,8 @@ def bifurcations(graph, arc_factor=2.5):
                         else float) for k, v in rows.items()}
 
 
-def vessel_measures(graph, mask, spacing, unit="um", sample_step=None, min_curvature=None):
+def vessel_measures(graph, mask, spacing, unit="um", sample_step=None, min_curvature=None,
+                    roi=None):
     """Vessel measures of a skeleton graph and its mask.
 
     Notes
@@ -235,7 +236,8 @@ def vessel_measures(graph, mask, spacing, unit="um", sample_step=None, min_curva
     Returns
     -------
     summary : dict
-        ``length_density`` (length per image volume or area), ``volume_fraction``,
+        ``length_density`` (length per ROI volume or area; the ROI is the
+        whole image unless ``roi`` is given), ``volume_fraction``,
         ``murray_exponent`` (median over bifurcations) with its interquartile
         range and count, median branching angles, length-weighted mean
         tortuosity indices, and a length-weighted radius histogram.
@@ -247,7 +249,8 @@ def vessel_measures(graph, mask, spacing, unit="um", sample_step=None, min_curva
     mask = np.asarray(mask, bool)
     if mask.ndim not in (2, 3):
         raise InputError("vessel measures need a 2D or 3D image")
-    tv = mask.size * float(np.prod(spacing))
+    inside = mask.size if roi is None else int(np.count_nonzero(roi))
+    tv = inside * float(np.prod(spacing))
     voxel = float(np.max(spacing))
     step = 3 * voxel if sample_step is None else float(sample_step)
     kmin = 1.0 / (30 * voxel) if min_curvature is None else float(min_curvature)
@@ -269,7 +272,7 @@ def vessel_measures(graph, mask, spacing, unit="um", sample_step=None, min_curva
     per_area = "^-2" if mask.ndim == 2 else "^-3"
     summary = {
         "length_density": float(L.sum()) / tv,
-        "volume_fraction": float(np.count_nonzero(mask)) / mask.size,
+        "volume_fraction": float(np.count_nonzero(mask if roi is None else mask & roi)) / inside,
         "murray_exponent": float(np.median(x)) if len(x) else float("nan"),
         "murray_exponent_iqr": float(np.subtract(*np.percentile(x, [75, 25]))) if len(x) else float("nan"),
         "n_bifurcations": int(len(bif["node"])),

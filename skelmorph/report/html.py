@@ -369,6 +369,10 @@ def write_report(study, out=None, max_gallery=24, max_rows=200):
                                     for f in fails]))
     else:
         parts.append("<p class='small'>No sample failed.</p>")
+    flagged = _sample_warnings(study, cohort["sample"])
+    if flagged:
+        parts.append("<h3>Segmentation warnings</h3>" + _table(
+            ["sample", "warning"], [[_esc(k), _esc(w)] for k, w in flagged]))
     # Figures.
     parts.append("<h2>Measures by group</h2>")
     if "measures" in figs:
@@ -429,6 +433,17 @@ def write_report(study, out=None, max_gallery=24, max_rows=200):
     return out
 
 
+def _sample_warnings(study, samples):
+    rows = []
+    for sid in samples:
+        try:
+            summ = json.loads((Path(study) / "samples" / str(sid) / "summary.json").read_text())
+        except (OSError, ValueError):
+            continue
+        rows += [(str(sid), w) for w in summ.get("warnings") or []]
+    return rows
+
+
 def _measure_table(comp, limit=30):
     rows = []
     ordered = sorted(comp["measures"].items(),
@@ -470,6 +485,32 @@ def _persistence_figure(study, cohort, labels, figdir):
     return "figures/persistence_images.png"
 
 
+def _warnings_block(lines):
+    if not lines:
+        return "<p class='small'>No segmentation warning.</p>"
+    return ("<h2>Segmentation warnings</h2><ul>" + "".join(f"<li>{_esc(w)}</li>" for w in lines)
+            + "</ul><p class='small'>Check the segmentation before trusting the numbers.</p>")
+
+
+def _step_text(step):
+    rest = ", ".join(f"{k.replace('_', ' ')} {_fmt(v) if isinstance(v, float) else _esc(v)}"
+                     for k, v in step.items() if k != "step")
+    return _esc(step.get("step", "")) + (f": {rest}" if rest else "")
+
+
+def _provenance_block(summary):
+    """What was done to the data, in order, for a methods section."""
+    items = [_step_text(st) for st in summary.get("preprocessing") or []]
+    proc = summary.get("processing") or {}
+    if proc:
+        items.append("skeleton and graph: " + ", ".join(f"{_esc(k.replace('_', ' '))} {_esc(v)}"
+                                                        for k, v in proc.items()))
+    if not items:
+        return ""
+    return "<h2>How the data were prepared</h2><ol>" + "".join(
+        f"<li>{i}</li>" for i in items) + "</ol>"
+
+
 def write_sample_report(folder, result=None):
     """A one-sample page in an ``analyze`` output folder (``report.html``)."""
     from ..graph import SkeletonGraph
@@ -488,9 +529,11 @@ def write_sample_report(folder, result=None):
              f"<h1>Sample report</h1><p class='small'>{_esc(summary.get('source') or '')}; "
              f"lengths in {_esc(u)}.</p>",
              f"<p class='caution'><b>Caution.</b> {_esc(summary.get('caution', ''))}</p>",
+             _warnings_block(summary.get("warnings") or []),
              "<h2>The network</h2>", _img("figures/graph.png", "centreline graph",
                                           f"Centrelines coloured by radius ({_esc(u)})."),
-             "<h2>Measures</h2>", _table(["measure", "value"], rows)]
+             "<h2>Measures</h2>", _table(["measure", "value"], rows),
+             _provenance_block(summary)]
     for name, cap in (("barcode.png", "Elder-rule barcode and persistence diagram."),
                       ("profiles.png", "Radial profiles around the root.")):
         if (folder / name).exists():
