@@ -445,10 +445,52 @@ def venation(cells=(4, 5), cell_size=40.0, vein_width=4.0, midrib_width=8.0, n_s
 
 
 #: Phantoms by command-line name.
+def core_scan(n_cells=4, pitch=16.0, rod_radius=2.5, core_radius=None, margin=10.0, noise=12.0,
+              blur=1.0, seed=0, spacing=1.0, unit="um"):
+    """A grey micro-CT-like scan of a cylindrical core of a rod lattice in air.
+
+    An invented sample: a drilled core (axis along z) of a printed lattice,
+    scanned with its surrounding air.  Grey levels 20 (air), 70 (the core's
+    filling between rods) and 200 (rods), blurred by a Gaussian of ``blur``
+    voxels and with Gaussian noise of standard deviation ``noise``; uint8.
+    ``Phantom.mask`` holds the grey image.
+
+    Truth: the rods inside the core (``solid``, a bool array), the core's
+    cross-section (``core``), their volume fraction ``bv_tv`` and the core
+    volume ``core_volume``; Conn.D -> 2 / pitch^3 as for :func:`rod_lattice`.
+    """
+    from scipy import ndimage as ndi
+
+    lattice = rod_lattice(n_cells, pitch, rod_radius, spacing, unit)
+    sp = lattice.spacing
+    nz, ny, nx = lattice.mask.shape
+    pad = [int(np.ceil(margin / s)) for s in sp[1:]]
+    shape = (nz, ny + 2 * pad[0], nx + 2 * pad[1])
+    radius = 0.5 * n_cells * pitch - 2.0 if core_radius is None else float(core_radius)
+    y = (np.arange(shape[1]) + 0.5) * sp[1] - 0.5 * shape[1] * sp[1]
+    x = (np.arange(shape[2]) + 0.5) * sp[2] - 0.5 * shape[2] * sp[2]
+    disc = (y[:, None] ** 2 + x[None, :] ** 2) <= radius ** 2
+    core = np.broadcast_to(disc, shape).copy()
+    solid = np.zeros(shape, bool)
+    solid[:, pad[0]:pad[0] + ny, pad[1]:pad[1] + nx] = lattice.mask
+    solid &= core
+    grey = np.where(solid, 200.0, np.where(core, 70.0, 20.0)).astype(np.float32)
+    if blur:
+        grey = ndi.gaussian_filter(grey, blur)
+    rng = np.random.default_rng(seed)
+    grey += rng.normal(0.0, noise, shape).astype(np.float32)
+    image = np.clip(np.round(grey), 0, 255).astype(np.uint8)
+    voxel = float(np.prod(sp))
+    truth = dict(solid=solid, core=core, bv_tv=float(solid.sum() / core.sum()),
+                 core_volume=float(core.sum()) * voxel, conn_density=2.0 / pitch ** 3,
+                 pitch=float(pitch))
+    return Phantom(image, sp, unit, truth)
+
+
 PHANTOMS = {
     "tube": straight_tube, "bent": bent_tube, "torus": torus, "ring2d": ring2d, "helix": helix,
     "y": y_bifurcation, "lattice": rod_lattice, "frame": wire_frame, "plates": plate_stack,
-    "tree": random_tree, "foam": foam, "venation": venation,
+    "tree": random_tree, "foam": foam, "venation": venation, "core-scan": core_scan,
 }
 
 

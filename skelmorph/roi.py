@@ -64,7 +64,7 @@ def load_roi(roi, shape):
     return roi
 
 
-def field_of_view(image, spacing=None, sigma=2.0, margin=2.0):
+def field_of_view(image, spacing=None, sigma=2.0, margin=None):
     """The illuminated field of view of a photograph, or the sample of a CT volume.
 
     Parameters
@@ -73,9 +73,10 @@ def field_of_view(image, spacing=None, sigma=2.0, margin=2.0):
     spacing : sequence of float, optional
     sigma : float
         Smoothing before the threshold, in voxels.
-    margin : float
-        The field is shrunk by this many voxels, so that the bright rim of a
-        photograph's aperture is not taken for structure.
+    margin : float, optional
+        The field is shrunk by this many voxels, so that the rim of a
+        photograph's aperture is not taken for structure.  Default 2 voxels
+        in 2D (photographs), 0 in 3D (the sample's own edge is kept).
 
     Returns
     -------
@@ -109,6 +110,8 @@ def field_of_view(image, spacing=None, sigma=2.0, margin=2.0):
         sizes = np.bincount(labels.ravel())
         sizes[0] = 0
         inside = labels == int(np.argmax(sizes))
+    if margin is None:
+        margin = 2.0 if image.ndim == 2 else 0.0
     if margin:
         spacing = np.ones(image.ndim) if spacing is None else np.asarray(spacing, float)
         depth = ndi.distance_transform_edt(inside, sampling=spacing / spacing.min())
@@ -117,15 +120,24 @@ def field_of_view(image, spacing=None, sigma=2.0, margin=2.0):
 
 
 def filled_outline(mask):
-    """Convex hull of a segmented structure, slice by slice along axis 0 in 3D."""
+    """Convex hull of a segmented structure, slice by slice along axis 0 in 3D.
+
+    A slice without structure that lies between slices with structure (the
+    space between plates, say) gets the overlap of the nearest hulls above
+    and below it.
+    """
     from skimage.morphology import convex_hull_image
 
     mask = np.asarray(mask, bool)
     if mask.ndim == 2:
         return convex_hull_image(mask) if mask.any() else mask.copy()
     out = np.zeros_like(mask)
-    for z in np.flatnonzero(mask.any(axis=(1, 2))):
+    full = np.flatnonzero(mask.any(axis=(1, 2)))
+    for z in full:
         out[z] = convex_hull_image(mask[z])
+    for below, above in zip(full[:-1], full[1:]):
+        if above > below + 1:
+            out[below + 1:above] = out[below] & out[above]
     return out
 
 
