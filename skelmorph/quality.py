@@ -15,7 +15,7 @@ __all__ = ["segmentation_warnings", "MIN_BRANCHES"]
 #: Below this many branches, network statistics describe almost nothing.
 MIN_BRANCHES = 5
 _MAX_FOREGROUND_SHARE = 0.5
-_MAX_BORDER_SHARE = 0.5
+_MAX_BORDER_SHARE = 0.75
 _BLOB_SHARE = 0.5
 _BLOB_RATIO = 3.0
 

@@ -293,3 +293,25 @@ def test_measure_errors(tmp_path, capsys):
     assert main(["analyze", str(tmp_path / "v.npy"), "--spacing", "1", "--measures", "bone"]) == 2
     err = capsys.readouterr().err
     assert "bone measures need a 3D image" in err and err.count("\n") == 1
+
+
+def test_bounded_local_thickness_near_exact():
+    # Parallel plates 74 voxels apart: the lattice of every k-th voxel keeps
+    # the mean within 4 % of the exact painting (measured -0.7 % to -3.5 %),
+    # and is exact when the balls are under the limit (analytic P - t = 74
+    # between plates; the image edge is not a wall, so edge slabs are wider).
+    from skelmorph.measure.thickness import bounded_local_thickness
+    from skelmorph.thinning import distance_map_sq
+    m = np.zeros((240, 40, 40), bool)
+    for z in range(0, 240, 80):
+        m[z:z + 6] = True
+    space = ~m
+    d = np.sqrt(distance_map_sq(space, (1.0, 1.0, 1.0)))
+    exact, k1 = bounded_local_thickness(space, d, (1, 1, 1), max_ball=1000)
+    assert k1 == 1
+    assert exact[85:150].max() == pytest.approx(74 + 1, abs=1.01)  # centre-to-centre + 1
+    for limit in (32, 16):
+        approx, k = bounded_local_thickness(space, d, (1, 1, 1), max_ball=limit)
+        assert k > 1
+        assert approx[space].mean() == pytest.approx(exact[space].mean(), rel=0.04)
+        assert approx[space].mean() <= exact[space].mean() + 1e-3

@@ -28,7 +28,7 @@ __all__ = ["local_thickness", "ridge_centres", "bounded_local_thickness", "MAX_B
 
 #: :func:`bounded_local_thickness` paints balls of at most this radius, in
 #: voxels; larger spaces are measured on a coarser lattice.
-MAX_BALL_VOXELS = 32
+MAX_BALL_VOXELS = 16
 
 
 
@@ -143,7 +143,7 @@ def local_thickness(mask, spacing=None, method="ridge", dist=None):
     return np.where(mask, out, np.float32(0))
 
 
-def bounded_local_thickness(phase, dist, spacing):
+def bounded_local_thickness(phase, dist, spacing, max_ball=None):
     """Local thickness with bounded work: balls of at most ``MAX_BALL_VOXELS``.
 
     The painting cost grows with the volume of the balls; in a sparse
@@ -152,9 +152,11 @@ def bounded_local_thickness(phase, dist, spacing):
     the finest axis, the ball centres and the painted voxels are taken on
     the lattice of every k-th voxel, k = floor(largest / MAX_BALL_VOXELS),
     with the radii still read from the full-resolution distance map, and
-    each voxel takes the value of its lattice point.  The values are then
-    low by at most about k voxels on balls of more than 32 k voxels (about
-    3 % of the diameter); below the limit the result is exact.
+    each voxel takes the value of its lattice point.  Below the limit the
+    result is exact; above it the mean is slightly low: measured -0.7, -1.4
+    and -3.5 % for k = 2, 3, 4 on plates 74 voxels apart, and -1.8 % for
+    k = 2 on a foam of 48-voxel cells, where the exact painting took 40-70
+    times longer (scripts/bench.py, measures).
 
     Parameters
     ----------
@@ -162,6 +164,8 @@ def bounded_local_thickness(phase, dist, spacing):
     dist : float array
         Euclidean distance map of ``phase`` (0 outside it), physical units.
     spacing : sequence of float
+    max_ball : float, optional
+        The radius limit in voxels (default ``MAX_BALL_VOXELS``).
 
     Returns
     -------
@@ -172,7 +176,7 @@ def bounded_local_thickness(phase, dist, spacing):
     spacing = np.asarray(spacing, float)
     phase = np.asarray(phase, bool)
     largest = float(dist.max(initial=0.0)) / spacing.min()
-    k = max(1, int(largest // MAX_BALL_VOXELS))
+    k = max(1, int(largest // (max_ball or MAX_BALL_VOXELS)))
     if k == 1:
         return local_thickness(phase, spacing, dist=dist), 1
     sub = tuple(slice(None, None, k) for _ in range(phase.ndim))
