@@ -244,8 +244,10 @@ def _cmd_phantom(args):
         out = out.with_suffix(".tif")
     write_tiff(out, ph.mask, ph.spacing, ph.unit)
     truth = out.with_suffix(".json")
+    import numpy as np
+    plain = {k: v for k, v in ph.truth.items() if not isinstance(v, np.ndarray)}  # no masks
     write_json(truth, {"phantom": args.name, "spacing": ph.spacing, "unit": ph.unit,
-                       "shape": list(ph.mask.shape), "truth": ph.truth})
+                       "shape": list(ph.mask.shape), "truth": plain})
     print(f"wrote {out} {ph.mask.shape} voxel {ph.spacing} {ph.unit}, truth in {truth}")
 
 
