@@ -941,6 +941,11 @@ def skeleton_graph(mask, spacing=None, prune=True, *, unit="um", prune_factor=1.
         raise InputError(f"unknown thinning method {method!r}; use one of "
                          f"{', '.join(THINNING_METHODS)}")
     source_spacing, source_shape = spacing, mask.shape
+    # Work in units of the finest voxel side and scale back at the end, so
+    # results are equivariant under a change of unit (1e-12 or 1e6 per voxel).
+    scale = min(spacing)
+    spacing = tuple(s / scale for s in spacing)
+    min_branch_length = min_branch_length / scale
     resampled = False
     if isotropic and max(spacing) > min(spacing):
         with _timed(timings, "resample"):
@@ -963,7 +968,12 @@ def skeleton_graph(mask, spacing=None, prune=True, *, unit="um", prune_factor=1.
                                 merge_junctions=merge_junctions, extend_tips=extend_tips,
                                 smoothing=smoothing, timings=timings, dist_sq=dist_sq,
                                 meta={"resampled_isotropic": resampled,
-                                      "thinning_spacing": list(spacing),
+                                      "thinning_spacing": [x * scale for x in spacing],
                                       "thinning": method})
     # Report the source image's voxel size and shape, not the resampled ones.
-    return dataclasses.replace(graph, spacing=source_spacing, shape=tuple(source_shape))
+    return dataclasses.replace(
+        graph, spacing=source_spacing, shape=tuple(source_shape),
+        nodes=graph.nodes * scale, node_radius=graph.node_radius * scale,
+        points=graph.points * scale, point_radius=graph.point_radius * scale,
+        edge_length=graph.edge_length * scale,
+        edge_radius=None if graph.edge_radius is None else graph.edge_radius * scale)

@@ -10,12 +10,24 @@ from pathlib import Path
 from . import __version__
 from .errors import SkelmorphError
 
+#: Exit codes: 0 success, 2 bad input (one line on stderr), 3 a cohort run in
+#: which some samples failed (the tables are still written), 130/143 stopped
+#: by SIGINT/SIGTERM.
+EXIT_BAD_INPUT, EXIT_SOME_FAILED = 2, 3
+
 CAUTION_TEXT = ("Outputs are research measurements, not a diagnosis; do not use them for "
                 "clinical decisions and defer to qualified practice.")
 
 
+class _Parser(argparse.ArgumentParser):
+    """Usage errors in one line, exit code 2, like every other bad input."""
+
+    def error(self, message):
+        self.exit(2, f"{self.prog}: error: {' '.join(message.split())} (see --help)\n")
+
+
 def _parser():
-    p = argparse.ArgumentParser(
+    p = _Parser(
         prog="skelmorph",
         description="Turn segmented 2D/3D images of branching or porous structures (bone, "
                     "vessels, leaf veins) into measured networks. " + CAUTION_TEXT,
@@ -43,6 +55,9 @@ def _parser():
     g.add_argument("--threshold", type=float,
                    help="grey level threshold, or of the enhanced image (default: Otsu in the ROI)")
     g.add_argument("--dark", action="store_true", help="structure is darker than background")
+    g.add_argument("--label", type=int, default=None, metavar="N",
+                   help="label images: keep the voxels of value N (label maps are not "
+                        "thresholded unasked)")
     g.add_argument("--smooth", type=float, default=None, metavar="SIGMA",
                    help="Gaussian smoothing before thresholding, sigma in the image unit")
     g.add_argument("--enhance", choices=["vessels"], default=None,
@@ -97,6 +112,12 @@ def _parser():
     t.add_argument("--paths", type=int, default=None, metavar="K",
                    help="count simple paths up to K branches and write path-poset invariants "
                         "to paths.json")
+    t.add_argument("--work-limit", type=float, default=900.0, metavar="SECONDS",
+                   help="refuse tree descriptors, profiles and paths estimated to take longer "
+                        "(default 900)")
+    t.add_argument("--max-paths", type=float, default=None, metavar="N",
+                   help="refuse --paths when the estimated number of paths exceeds N "
+                        "(default 2e7)")
 
     f = sub.add_parser("phantom", help="write a synthetic structure with its ground truth",
                        description="Write a phantom as TIFF (with voxel size) and its "
@@ -182,7 +203,7 @@ def _cmd_analyze(args):
                      threshold=args.threshold, dark=args.dark,
                      min_object_size=args.min_object_size, max_hole_size=args.max_hole_size,
                      smooth=args.smooth, enhance=args.enhance, scales=args.scales,
-                     hysteresis=_hysteresis(args.hysteresis), roi=args.roi,
+                     hysteresis=_hysteresis(args.hysteresis), roi=args.roi, label=args.label,
                      prune=not args.no_prune, prune_factor=args.prune_factor,
                      min_branch_length=args.min_branch_length, extend_tips=args.extend_tips,
                      thinning=args.thinning,
@@ -191,7 +212,8 @@ def _cmd_analyze(args):
                      filtration=args.filtration, seed=args.seed,
                      root_point=args.root_point, root_face=args.root_face,
                      n_radii=args.radii, paths=args.paths, measures=args.measures,
-                     thickness_map=args.thickness_map,
+                     thickness_map=args.thickness_map, work_limit=args.work_limit,
+                     max_paths=None if args.max_paths is None else int(args.max_paths),
                      out=out, progress=not args.quiet)
     if args.report:
         from .report.html import write_sample_report
@@ -254,16 +276,22 @@ def _cmd_phantom(args):
 def _cmd_cohort(args):
     if args.cohort_command == "run":
         from .cohort.run import run_cohort
-        if args.workers < 1:
-            raise SkelmorphError("--workers must be at least 1")
         rep = run_cohort(args.manifest, args.out, options=args.options, workers=args.workers,
                          scheduler=args.scheduler, progress=not args.quiet)
         print(f"{len(rep.computed)} analysed, {len(rep.cached)} reused, {len(rep.failed)} failed "
               f"in {rep.seconds:.1f} s; results in {args.out}/ (samples/, cohort.csv, "
               f"profiles.csv, barcodes.csv, failures.csv)")
+        for sample, why in rep.repaired.items():
+            print(f"  recomputed: {sample}: cached results were damaged ({why})")
         for sample, message in rep.failed.items():
             print(f"  failed: {sample}: {message}")
-        return 0
+        if rep.interrupted:
+            import signal
+            from .cohort.run import LAST_SIGNAL
+            print("skelmorph: interrupted; the tables hold the samples finished so far",
+                  file=sys.stderr)
+            return 143 if LAST_SIGNAL[0] == signal.SIGTERM else 130
+        return EXIT_SOME_FAILED if rep.failed else 0
     if args.cohort_command == "report":
         from .report.html import write_report
         page = write_report(args.study, out=args.out, max_gallery=args.gallery)
@@ -326,15 +354,15 @@ def main(argv=None):
     args = _parser().parse_args(argv)
     warnings.showwarning = _show_warning
     try:
-        {"analyze": _cmd_analyze, "phantom": _cmd_phantom, "demo": _cmd_demo,
-         "cohort": _cmd_cohort}[args.command](args)
+        code = {"analyze": _cmd_analyze, "phantom": _cmd_phantom, "demo": _cmd_demo,
+                "cohort": _cmd_cohort}[args.command](args)
     except SkelmorphError as exc:
-        print(f"skelmorph: error: {exc}", file=sys.stderr)
-        return 2
+        print(f"skelmorph: error: {' '.join(str(exc).split())}", file=sys.stderr)
+        return EXIT_BAD_INPUT
     except KeyboardInterrupt:
         print("skelmorph: interrupted", file=sys.stderr)
         return 130
-    return 0
+    return code or 0
 
 
 if __name__ == "__main__":

@@ -42,6 +42,9 @@ _TIFF_SUFFIXES = {".tif", ".tiff"}
 # thinning scratch space.  Measured on the foam phantom (scripts/bench.py).
 _BYTES_PER_VOXEL = 12
 _MAX_VOXELS = 2**34  # beyond this a volume is certainly a mistake on this machine
+#: Accepted voxel sizes, in any unit: wide enough for nm to km images, narrow
+#: enough that lengths, areas and volumes stay far from float64's limits.
+SPACING_RANGE = (1e-15, 1e15)
 
 
 class ImageData(NamedTuple):
@@ -107,6 +110,13 @@ def validate_spacing(spacing, ndim):
             f"give one value per axis in (z, y, x) order or a single value")
     if not np.all(np.isfinite(values)) or np.any(values <= 0):
         raise SpacingError(f"spacing must be finite and positive, got {tuple(values.tolist())}")
+    lo, hi = SPACING_RANGE
+    if np.any(values < lo) or np.any(values > hi):
+        raise SpacingError(f"spacing {tuple(values.tolist())} is outside {lo:g}..{hi:g}; "
+                           "give it in a length unit that suits the image (--unit)")
+    if values.max() / values.min() > 1e6:
+        raise SpacingError(f"spacing {tuple(values.tolist())} differs by more than 10^6 "
+                           "between axes; check the voxel size")
     return tuple(float(v) for v in values)
 
 
@@ -116,10 +126,34 @@ def estimate_memory(shape):
 
 
 def _available_memory():
+    """Memory available to a new allocation (MemAvailable), else the total."""
+    try:
+        with open("/proc/meminfo") as fh:
+            for line in fh:
+                if line.startswith("MemAvailable:"):
+                    return int(line.split()[1]) * 1024
+    except (OSError, ValueError, IndexError):
+        pass
     try:
         return os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES")
     except (ValueError, OSError, AttributeError):  # not on every platform
         return None
+
+
+def check_declared_size(shape, dtype, source):
+    """Refuse an image whose declared shape would not fit in memory, before
+    decoding it (the header is enough)."""
+    voxels = float(np.prod(np.asarray(shape, dtype=np.float64)))
+    raw = voxels * np.dtype(dtype).itemsize
+    need = max(raw, voxels * _BYTES_PER_VOXEL)
+    have = _available_memory()
+    if voxels > _MAX_VOXELS:
+        raise InputError(f"{source} declares {tuple(shape)} = {voxels:.3g} voxels, more than "
+                         f"skelmorph handles ({_MAX_VOXELS:.3g}); crop or downsample it")
+    if have is not None and need > have:
+        raise InputError(f"{source} declares an image of {tuple(shape)} {np.dtype(dtype)}: "
+                         f"analysing it needs about {need / 2**30:.1f} GiB, and "
+                         f"{have / 2**30:.1f} GiB is available; crop or downsample it")
 
 
 def check_image_array(array, *, allow_color=False):
@@ -267,6 +301,7 @@ def _read_tiff(path):
             damaged = [m for m in log.messages if "invalid" in m or "corrupt" in m or "truncat" in m]
             if damaged:
                 raise ImageReadError(f"TIFF {path} is damaged or truncated ({damaged[0]})")
+            check_declared_size(shape, dtype, f"TIFF {path}")
             if contiguous:
                 need = series.dataoffset + int(np.prod(shape)) * np.dtype(dtype).itemsize
                 size = os.path.getsize(path)
@@ -285,7 +320,7 @@ def _read_tiff(path):
                 array = None
         if array is None:
             array = tifffile.imread(path)
-    except ImageReadError:
+    except (ImageReadError, InputError):
         raise
     except Exception as exc:  # noqa: BLE001 - tifffile raises many kinds
         raise ImageReadError(f"cannot read TIFF {path}: {exc.__class__.__name__}: {exc}. "
@@ -296,12 +331,32 @@ def _read_tiff(path):
     return array, spacing, unit, is_rgb
 
 
+def _plain_header(path):
+    """Declared (shape, dtype) of a PNG/JPEG/BMP/GIF from its header, or None."""
+    try:
+        from PIL import Image
+        Image.MAX_IMAGE_PIXELS = None  # the size check below is ours
+        with Image.open(path) as im:
+            bands = len(im.getbands())
+            shape = (im.size[1], im.size[0]) + ((bands,) if bands > 1 else ())
+            dtype = np.uint16 if im.mode.startswith("I;16") else (
+                np.int32 if im.mode in ("I", "F") else np.uint8)
+            return shape, dtype
+    except Exception:  # noqa: BLE001 - imageio gives the reason below
+        return None
+
+
 def _read_plain(path):
+    header = _plain_header(path)
+    if header is not None:
+        check_declared_size(*header, f"image {path}")
     try:
         import imageio.v3 as iio
         array = iio.imread(path)
     except Exception as exc:  # noqa: BLE001
-        raise ImageReadError(f"cannot read image {path}: {exc.__class__.__name__}: {exc}") from None
+        first = str(exc).strip().splitlines()[0] if str(exc).strip() else ""
+        raise ImageReadError(f"cannot read image {path}: it is empty, damaged or not an image "
+                             f"({exc.__class__.__name__}{': ' + first if first else ''})") from None
     return array, None, None, array.ndim == 3 and array.shape[-1] in (3, 4)
 
 
@@ -313,6 +368,7 @@ def _read_folder(path):
     first, spacing, unit, is_rgb = _read_file(files[0])
     if first.ndim != 2 and not (is_rgb and first.ndim == 3):
         raise ImageReadError(f"slice {files[0].name} is not a 2D image (shape {first.shape})")
+    check_declared_size((len(files),) + first.shape, first.dtype, f"folder {path}")
     stack = np.empty((len(files),) + first.shape, dtype=first.dtype)
     stack[0] = first
     for i, f in enumerate(files[1:], start=1):  # one file per slice, not a per-voxel loop
@@ -332,7 +388,16 @@ def _read_file(path):
         return _read_tiff(path)
     if suffix == ".npy":
         try:
-            return np.load(path, mmap_mode="r", allow_pickle=False), None, None, False
+            with open(path, "rb") as fh:  # the header first: refuse before mapping
+                version = np.lib.format.read_magic(fh)
+                read_header = (np.lib.format.read_array_header_1_0 if version == (1, 0)
+                               else np.lib.format.read_array_header_2_0)
+                shape, _, dtype = read_header(fh)
+            check_declared_size(shape, dtype, f"array {path}")
+            array = np.load(path, mmap_mode="r", allow_pickle=False)
+            return array, None, None, False
+        except InputError:
+            raise
         except Exception as exc:  # noqa: BLE001
             raise ImageReadError(f"cannot read {path} as a .npy array: {exc}") from None
     if suffix in IMAGE_SUFFIXES:
@@ -378,8 +443,14 @@ def read_image(path, spacing=None, unit=None, channel=None):
         Unusable image data or voxel size.
     """
     path = Path(path)
-    if not path.exists():
-        raise ImageReadError(f"no such file or folder: {path}")
+    try:
+        if not path.exists():
+            raise ImageReadError(f"no such file or folder: {path}")
+        regular = path.is_dir() or path.is_file()
+    except OSError as exc:  # a symlink loop, a name too long
+        raise ImageReadError(f"cannot open {path}: {exc.strerror or exc}") from None
+    if not regular:
+        raise ImageReadError(f"{path} is not a regular file or folder (a device or a pipe?)")
     try:
         array, file_spacing, file_unit, is_rgb = (_read_folder(path) if path.is_dir() else _read_file(path))
     except PermissionError:
@@ -389,7 +460,10 @@ def read_image(path, spacing=None, unit=None, channel=None):
     source = str(path)
     if is_rgb or (channel is not None and array.ndim >= 3 and array.shape[-1] in (3, 4)):
         array = _pick_channel(array, channel, source)
-    array = np.squeeze(array) if array.ndim > 3 or 1 in array.shape else array
+    while array.ndim > 3 and array.shape[0] == 1:  # hyperstack axes of length 1
+        array = array[0]
+    while array.ndim > 3 and array.shape[-1] == 1:
+        array = array[..., 0]
     array = check_image_array(array)
     ndim = array.ndim
     if file_spacing is not None:
@@ -496,6 +570,22 @@ def format_numbers(values, fmt="%.6g"):
     return ((fmt + "\n") * len(values) % tuple(values)).split("\n")[:-1]
 
 
+_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+
+
+def safe_cell(value):
+    """A CSV cell that a spreadsheet will not run as a formula: text starting
+    with ``= + - @`` (or a tab or carriage return) gets a leading apostrophe
+    (the OWASP advice on CSV injection); numbers are unchanged."""
+    if not isinstance(value, str) or not value.startswith(_FORMULA_START):
+        return value
+    try:
+        float(value)
+        return value  # a number such as -1.5
+    except ValueError:
+        return "'" + value
+
+
 def write_csv(path, columns):
     """Write a table given as ``{name: 1D array}`` to CSV, atomically.
 
@@ -512,6 +602,15 @@ def write_csv(path, columns):
             s = np.array(format_numbers(c), dtype=object)
             s[~np.isfinite(c)] = ""
             text_cols.append(s)
+        elif c.dtype.kind in "USO":
+            text = c.astype(str)
+            cells = text.astype(object)
+            risky = np.zeros(len(text), bool)
+            for start in _FORMULA_START:
+                risky |= np.char.startswith(text, start)
+            for i in np.flatnonzero(risky):  # only the few risky cells
+                cells[i] = safe_cell(cells[i])
+            text_cols.append(cells)
         else:
             text_cols.append(c.astype(str).astype(object))
     with atomic_write(path, "w", encoding="utf-8", newline="") as fh:

@@ -50,7 +50,7 @@ class PreparedMask:
 
 
 def prepare_mask(array, spacing, *, roi=None, threshold=None, dark=False, smooth=None,
-                 enhance=None, scales=None, hysteresis=None, min_object_size=None,
+                 enhance=None, scales=None, hysteresis=None, label=None, min_object_size=None,
                  max_hole_size=None):
     """Region of interest and segmentation, cropped to the region's bounding box.
 
@@ -66,8 +66,8 @@ def prepare_mask(array, spacing, *, roi=None, threshold=None, dark=False, smooth
     warn, how, roi_mask = [], None, None
     seg = dict(threshold=threshold, dark=dark, smooth=smooth, enhance=enhance, scales=scales,
                hysteresis=hysteresis, min_object_size=min_object_size,
-               max_hole_size=max_hole_size)
-    binary = is_binary(array)
+               max_hole_size=max_hole_size, label=label)
+    binary = is_binary(array) or label is not None
     if isinstance(roi, str) and roi == "auto":
         if not binary:
             roi_mask = field_of_view(array, spacing)
@@ -78,7 +78,7 @@ def prepare_mask(array, spacing, *, roi=None, threshold=None, dark=False, smooth
     image_mask = None
     if isinstance(roi, str) and roi == "auto" and binary:
         image_mask, steps = segment_image(array, spacing, **seg)
-        roi_mask, how = auto_roi(array, image_mask, spacing)
+        roi_mask, how = auto_roi(array if label is None else image_mask, image_mask, spacing)
         how = "auto: " + how
     if isinstance(roi, str) and roi == "auto" and roi_mask is None:
         warn.append("--roi auto found no background around the sample (less than half of "
@@ -141,11 +141,12 @@ class AnalysisResult:
 
 def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dark=False,
             min_object_size=None, max_hole_size=None, smooth=None, enhance=None, scales=None,
-            hysteresis=None, roi=None, prune=True, prune_factor=1.5,
+            hysteresis=None, roi=None, label=None, prune=True, prune_factor=1.5,
             min_branch_length=0.0, extend_tips=False, smoothing=2.0, merge_junctions=True,
             thinning="ordered", root="thickest", tree="shortest", n_trees=1, filtration="radial", seed=0,
             root_point=None, root_face=None, n_radii=200, paths=None, measures=None,
-            thickness_map=False, out=None, figures=True, progress=False):
+            thickness_map=False, work_limit=900.0, max_paths=None, out=None, figures=True,
+            progress=False):
     """Analyse one image end to end.
 
     Parameters
@@ -154,7 +155,7 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
         A file/folder (see :func:`skelmorph.read_image`) or an array.
     spacing, unit, channel
         Voxel size and unit (override the file's), colour channel.
-    threshold, dark, min_object_size, max_hole_size, smooth, enhance, scales, hysteresis
+    threshold, dark, min_object_size, max_hole_size, smooth, enhance, scales, hysteresis, label
         Segmentation of grey images, see :func:`skelmorph.to_mask`.
     roi : path, bool array or 'auto', optional
         Region of interest (:mod:`skelmorph.roi`): a mask of the image's
@@ -187,6 +188,14 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
     paths : int, optional
         Longest path of the path-poset invariants
         (:func:`skelmorph.path_poset_invariants`), written to ``paths.json``.
+    work_limit : float
+        Seconds the tree descriptors, radial profiles and path counts may take
+        by an estimate made from the graph's size (see
+        :func:`skelmorph.options.estimate_descriptor_seconds`); beyond it the
+        run stops with a message that gives the estimate.  ``inf`` removes it.
+    max_paths : int, optional
+        Limit on the estimated number of simple paths for ``paths``
+        (default :data:`skelmorph.options.MAX_PATHS`).
     out : str or Path, optional
         Folder to write ``graph.graphml``, ``graph.vtp``, ``nodes.csv``,
         ``branches.csv``, ``summary.json`` and, with tree descriptors,
@@ -199,8 +208,26 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
     -------
     AnalysisResult
     """
+    from .options import MAX_PATHS, estimate_descriptor_seconds, validate_options
     from .progress import Progress
 
+    if root_point is not None:
+        root_point = [float(v) for v in np.ravel(root_point)]
+    validate_options(dict(
+        channel=channel, threshold=threshold, dark=dark, min_object_size=min_object_size,
+        max_hole_size=max_hole_size, smooth=smooth, enhance=enhance,
+        scales=None if scales is None else list(scales),
+        hysteresis=hysteresis if hysteresis is None or isinstance(hysteresis, str)
+        else list(hysteresis), roi=roi if roi is None or isinstance(roi, str) else str(roi),
+        label=label, prune=prune, prune_factor=prune_factor,
+        min_branch_length=min_branch_length, extend_tips=extend_tips, smoothing=smoothing,
+        merge_junctions=merge_junctions, thinning=thinning, root=root, tree=tree,
+        n_trees=n_trees, filtration=filtration, seed=seed, root_point=root_point,
+        root_face=root_face, n_radii=n_radii, paths=paths, measures=measures,
+        thickness_map=thickness_map, figures=figures, work_limit=work_limit,
+        max_paths=max_paths), where="analysis options")
+    if out is not None:
+        _check_out(out)
     sets = _measure_sets(measures)
     bar = Progress(6 + len(sets) + (out is not None), "analyze", enabled=progress)
     timings = {}
@@ -220,7 +247,7 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
     bar.update(note="read")
     t0 = time.perf_counter()
     prep = prepare_mask(array, spacing, roi=roi, threshold=threshold, dark=dark, smooth=smooth,
-                        enhance=enhance, scales=scales, hysteresis=hysteresis,
+                        enhance=enhance, scales=scales, hysteresis=hysteresis, label=label,
                         min_object_size=min_object_size, max_hole_size=max_hole_size)
     mask, roi_mask = prep.mask, prep.roi
     if channel is not None:
@@ -259,6 +286,24 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
         full[prep.box] = local
         extra["maps"][name] = full
     result = AnalysisResult(graph=graph, summary=summary, mask=mask, timings=timings)
+    cost = estimate_descriptor_seconds(graph, n_trees if tree is not None else 0, n_radii, paths)
+    limit = MAX_PATHS if max_paths is None else max_paths
+    if cost["n_paths"] > limit:
+        raise InputError(f"--paths {paths} would count about {cost['n_paths']:.2g} simple paths "
+                         f"on this graph (limit {limit:.2g}); ask for fewer branches per path or "
+                         "raise --max-paths")
+    from .io import _available_memory
+    have = _available_memory()
+    if have is not None and cost["tree_bytes"] > 0.5 * have:
+        raise InputError(f"{n_trees} spanning trees of this graph would need about "
+                         f"{cost['tree_bytes'] / 2**30:.1f} GiB ({have / 2**30:.1f} GiB "
+                         "available); ask for fewer trees (--trees)")
+    seconds = cost["trees"] + cost["radii"] + cost["paths"]
+    if seconds > work_limit:
+        raise InputError(f"the tree descriptors, radial profiles and path counts would take about "
+                         f"{seconds:.0f} s on this graph (trees {cost['trees']:.0f} s, radii "
+                         f"{cost['radii']:.0f} s, paths {cost['paths']:.0f} s; limit "
+                         f"{work_limit:g} s); ask for fewer or raise --work-limit")
     summary.update(extra.pop("summary"))
     result.branch_columns = extra["branch_columns"]
     result.bifurcations = extra["bifurcations"]
@@ -303,6 +348,19 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
         write_results(result, out, figures=figures)
         bar.update(note="written")
     return result
+
+
+def _check_out(out):
+    """Find problems with the output folder before any work."""
+    import os
+    out = Path(out)
+    if out.exists() and not out.is_dir():
+        raise InputError(f"--out {out} is an existing file, not a folder")
+    probe = out
+    while not probe.exists():  # the nearest existing parent must be writable
+        probe = probe.parent
+    if not os.access(probe, os.W_OK | os.X_OK):
+        raise InputError(f"cannot write results into {out}: {probe} is not writable")
 
 
 MEASURE_SETS = ("bone", "vessel", "venation")

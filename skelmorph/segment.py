@@ -191,9 +191,29 @@ def _hysteresis_levels(hysteresis, score, high, roi):
     return low, high
 
 
+#: An integer image with at most this many distinct values (and more than
+#: two) is taken for a label map, which is never thresholded unasked.
+MAX_LABELS = 32
+
+
+def _label_values(image):
+    """Distinct values of an integer image if there are at most MAX_LABELS, else None."""
+    if image.dtype.kind not in "iu":
+        return None
+    flat = image.ravel()
+    if image.dtype.itemsize <= 2:
+        counts = np.bincount((flat.astype(np.int64) - int(flat.min())))
+        values = np.flatnonzero(counts) + int(flat.min())
+    else:
+        values = np.unique(flat[:: max(1, flat.size // 1_000_000)])
+        if len(values) <= MAX_LABELS:
+            values = np.unique(flat)
+    return values if len(values) <= MAX_LABELS else None
+
+
 def segment_image(image, spacing=None, *, threshold=None, dark=False, smooth=None,
                   enhance=None, scales=None, hysteresis=None, roi=None,
-                  min_object_size=None, max_hole_size=None):
+                  min_object_size=None, max_hole_size=None, label=None):
     """Turn a binary or grey image into a clean boolean mask, saying what was done.
 
     Parameters are those of :func:`to_mask`.
@@ -213,7 +233,21 @@ def segment_image(image, spacing=None, *, threshold=None, dark=False, smooth=Non
             raise InputError(f"the ROI has shape {roi.shape} but the image has {image.shape}; "
                              "they must match")
     steps = []
+    if label is not None:
+        if image.dtype.kind not in "iub":
+            raise InputError(f"--label needs an integer label image; this one is {image.dtype}")
+        image = image == label
+        if not image.any():
+            raise InputError(f"label {label} does not occur in the image")
+        steps.append({"step": "label", "value": int(label)})
     binary = is_binary(image)
+    if not binary and label is None and threshold is None and enhance is None:
+        values = _label_values(image)
+        if values is not None:
+            shown = ", ".join(str(v) for v in values[:8]) + (", ..." if len(values) > 8 else "")
+            raise InputError(f"the image holds {len(values)} integer values ({shown}): it looks "
+                             "like a label map; say which label to keep (--label N) or give "
+                             "--threshold")
     if binary and (smooth or enhance or hysteresis is not None):
         raise InputError("the image is already binary: --smooth, --enhance and --hysteresis "
                          "apply to grey images only")
@@ -297,7 +331,7 @@ def segment_image(image, spacing=None, *, threshold=None, dark=False, smooth=Non
 
 def to_mask(image, spacing=None, *, threshold=None, dark=False,
             min_object_size=None, max_hole_size=None, smooth=None, enhance=None,
-            scales=None, hysteresis=None, roi=None):
+            scales=None, hysteresis=None, roi=None, label=None):
     """Turn a binary or grey image into a clean boolean mask.
 
     Parameters
@@ -338,6 +372,10 @@ def to_mask(image, spacing=None, *, threshold=None, dark=False,
     roi : bool array, optional
         Region of interest: the threshold is computed inside it and the mask
         is clipped to it.
+    label : int, optional
+        Keep the voxels of this value of a label image.  An integer image
+        with 3 to ``MAX_LABELS`` distinct values is refused without
+        ``label``, ``threshold`` or ``enhance``.
 
     Returns
     -------
@@ -350,4 +388,5 @@ def to_mask(image, spacing=None, *, threshold=None, dark=False,
     """
     return segment_image(image, spacing, threshold=threshold, dark=dark, smooth=smooth,
                          enhance=enhance, scales=scales, hysteresis=hysteresis, roi=roi,
-                         min_object_size=min_object_size, max_hole_size=max_hole_size)[0]
+                         min_object_size=min_object_size, max_hole_size=max_hole_size,
+                         label=label)[0]

@@ -415,3 +415,16 @@ def test_manifest_roi_column(tmp_path):
     write_tiff(tmp_path / "roi.tif", roi2.astype(np.uint8), ph.spacing)
     rep = run_cohort(tmp_path / "m.csv", tmp_path / "study", options=opts, progress=False)
     assert rep.computed == ["a"] and sorted(rep.cached) == ["b", "c"]
+
+
+def test_core_scan_phantom_from_the_cli(tmp_path, capsys):
+    # The truth JSON holds the numbers, not the drawn masks.
+    import json
+    out = tmp_path / "core.tif"
+    assert main(["phantom", "core-scan", "--out", str(out)]) == 0
+    truth = json.loads(out.with_suffix(".json").read_text())["truth"]
+    assert set(truth) == {"bv_tv", "core_volume", "conn_density", "pitch"}
+    assert main(["analyze", str(out), "--roi", "auto", "--smooth", "1", "--measures", "bone",
+                 "--radii", "0", "--tree", "none", "-q", "-o", str(tmp_path / "o")]) == 0
+    s = json.loads((tmp_path / "o" / "summary.json").read_text())
+    assert s["BV/TV"] == pytest.approx(truth["bv_tv"], rel=0.2)

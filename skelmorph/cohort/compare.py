@@ -45,6 +45,12 @@ def load_study(study, by="group"):
         raise SkelmorphError(f"column {by!r} is not in {f}; columns: {', '.join(cohort.columns)}")
     cohort = cohort[cohort[by].notna() & (cohort[by].astype(str) != "")].reset_index(drop=True)
     cohort[by] = cohort[by].astype(str)
+    if "unit" in cohort.columns:
+        units = sorted(set(cohort["unit"].dropna().astype(str)))
+        if len(units) > 1:
+            raise SkelmorphError(f"the study mixes length units ({', '.join(units)}); its "
+                                 "measures cannot be compared as they are: give every sample's "
+                                 "spacing in one unit in the manifest and re-run")
     if len(cohort) < 2:
         raise SkelmorphError(f"need at least two finished samples with a {by!r}; found {len(cohort)}")
 

@@ -83,17 +83,27 @@ def read_manifest(path):
         with open(path, newline="", encoding="utf-8-sig") as fh:
             reader = csv.DictReader(fh)
             header = [h.strip().lower() for h in (reader.fieldnames or [])]
-            rows = [{(k or "").strip().lower(): (v or "").strip() for k, v in row.items()}
-                    for row in reader]
+            dupes = sorted({h for h in header if header.count(h) > 1})
+            if dupes:
+                raise ManifestError(f"manifest {path} has the column {dupes[0]!r} twice (column "
+                                    "names are case-insensitive); rename one")
+            raw = list(reader)
     except (UnicodeDecodeError, csv.Error) as exc:
         raise ManifestError(f"manifest {path} is not a readable CSV file: {exc}") from None
+    except OSError as exc:
+        raise ManifestError(f"cannot read manifest {path}: {exc.strerror or exc}") from None
+    long_rows = [i for i, row in enumerate(raw, start=2) if None in row]
+    if long_rows:
+        raise ManifestError(f"manifest {path}: line {long_rows[0]} has more fields than the "
+                            f"header ({len(header)} columns); quote values that hold commas")
+    rows = [{(k or "").strip().lower(): (v or "").strip() for k, v in row.items()} for row in raw]
     missing = [c for c in ("sample", "path") if c not in header]
     if missing:
         raise ManifestError(f"manifest {path} lacks the column(s) {', '.join(missing)}; "
                             f"it needs at least 'sample' and 'path' (found: {', '.join(header)})")
     if not rows:
         raise ManifestError(f"manifest {path} has no samples")
-    problems, samples, seen = [], [], {}
+    problems, samples, seen, folded = [], [], {}, {}
     for line, row in enumerate(rows, start=2):
         sid = row.get("sample", "")
         where = f"line {line}"
@@ -104,15 +114,24 @@ def read_manifest(path):
             problems.append(f"{where}: sample id {sid!r} may only use letters, digits, '.', '-', '_'")
         if sid in seen:
             problems.append(f"{where}: duplicate sample id {sid!r} (first on line {seen[sid]})")
+        elif sid.lower() in folded:
+            first = folded[sid.lower()]
+            problems.append(f"{where}: sample id {sid!r} differs from {first[0]!r} (line "
+                            f"{first[1]}) only in case; their folders would collide")
         seen.setdefault(sid, line)
+        folded.setdefault(sid.lower(), (sid, line))
         p = Path(row.get("path", ""))
         if not row.get("path"):
             problems.append(f"{where}: sample {sid!r} has no path")
         else:
-            if not p.is_absolute():
-                p = (path.parent / p).resolve()
-            if not p.exists():
-                problems.append(f"{where}: sample {sid!r}: file {p} does not exist")
+            try:
+                if not p.is_absolute():
+                    p = (path.parent / p).resolve()
+                if not p.exists():
+                    problems.append(f"{where}: sample {sid!r}: file {p} does not exist")
+            except (OSError, RuntimeError) as exc:  # a symlink loop
+                problems.append(f"{where}: sample {sid!r}: cannot open {p} "
+                                f"({getattr(exc, 'strerror', None) or exc})")
         try:
             spacing = _parse_spacing(row.get("spacing"))
         except ValueError:
@@ -133,6 +152,6 @@ def read_manifest(path):
         samples.append(Sample(sid, p, row.get("group", ""), spacing, row.get("unit") or None, meta,
                               roi))
     if problems:
-        raise ManifestError(f"manifest {path} has {len(problems)} problem(s):\n  "
-                            + "\n  ".join(problems))
+        raise ManifestError(f"manifest {path} has {len(problems)} problem(s): "
+                            + "; ".join(problems))
     return samples

@@ -5,19 +5,30 @@ Every sample is analysed exactly as ``skelmorph analyze`` would, into
 content, voxel size or the analysis options changed: ``done.json`` in its
 folder holds the cache key.  Each sample is written into a temporary
 folder that is renamed into place when complete, so a killed run leaves no
-half-written sample and a re-run picks up where it stopped.  A failing
-sample is recorded in ``failures.csv`` with its message; the rest goes on.
+half-written sample and a re-run picks up where it stopped.  ``done.json``
+also lists the size and SHA-256 of every output; a cached sample whose files
+no longer match is recomputed.  A failing sample is recorded in
+``failures.csv`` with its message; the rest goes on, and every manifest row
+ends up in ``cohort.csv`` or in ``failures.csv``.
+
+One run at a time works in a study folder: an advisory lock
+(``.skelmorph.lock``) is held for the whole run.  SIGINT and SIGTERM stop
+the scheduling of new samples, cancel the queued ones, write the tables of
+what is done and re-raise; local workers die with their parent.
 """
 
 from __future__ import annotations
 
+import contextlib
 import csv
 import hashlib
 import json
 import os
 import shutil
+import signal
 import time
 import uuid
+import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -25,7 +36,7 @@ import numpy as np
 
 from .._version import __version__
 from ..errors import SkelmorphError
-from ..io import atomic_path, write_csv, write_json
+from ..io import atomic_path, safe_cell, write_csv, write_json
 from .manifest import read_manifest
 
 __all__ = ["run_cohort", "load_options", "ANALYZE_OPTIONS", "RunReport", "collect_tables"]
@@ -33,10 +44,10 @@ __all__ = ["run_cohort", "load_options", "ANALYZE_OPTIONS", "RunReport", "collec
 #: Options of :func:`skelmorph.analyze` that a cohort options file may set.
 ANALYZE_OPTIONS = {
     "channel", "threshold", "dark", "min_object_size", "max_hole_size", "smooth", "enhance",
-    "scales", "hysteresis", "roi", "prune", "prune_factor",
+    "scales", "hysteresis", "roi", "label", "prune", "prune_factor",
     "min_branch_length", "extend_tips", "smoothing", "merge_junctions", "thinning", "root", "tree",
     "n_trees", "filtration", "seed", "root_point", "root_face", "n_radii", "paths",
-    "measures", "thickness_map", "figures",
+    "measures", "thickness_map", "figures", "work_limit", "max_paths",
 }
 
 
@@ -48,6 +59,8 @@ class RunReport:
     cached: list = field(default_factory=list)
     failed: dict = field(default_factory=dict)
     seconds: float = 0.0
+    repaired: dict = field(default_factory=dict)  # recomputed: the cache failed verification
+    interrupted: bool = False
 
 
 def load_options(path):
@@ -70,7 +83,8 @@ def load_options(path):
     if unknown:
         raise SkelmorphError(f"options file {path}: unknown option(s) {', '.join(unknown)}; "
                              f"allowed: {', '.join(sorted(ANALYZE_OPTIONS))}")
-    return dict(data)
+    from ..options import validate_options
+    return validate_options(dict(data), where=f"options file {path}")
 
 
 # ------------------------------------------------------------------ cache keys
@@ -107,6 +121,40 @@ def _cache_key(sample, content, options):
     return hashlib.sha256(blob.encode()).hexdigest()
 
 
+def _file_digest(path):
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for chunk in iter(lambda: fh.read(1 << 22), b""):
+            h.update(chunk)
+    return h.hexdigest()
+
+
+def _output_manifest(folder):
+    """Size and SHA-256 of every file of a finished sample (recursively)."""
+    folder = Path(folder)
+    return {str(p.relative_to(folder)): [p.stat().st_size, _file_digest(p)]
+            for p in sorted(folder.rglob("*")) if p.is_file() and p.name != "done.json"}
+
+
+def verify_outputs(folder, done):
+    """None when every output recorded in ``done`` is present and intact,
+    else a short reason."""
+    outputs = (done or {}).get("outputs")
+    if not outputs:
+        return "no output checksums recorded"
+    folder = Path(folder)
+    for name, (size, digest) in outputs.items():
+        f = folder / name
+        try:
+            if f.stat().st_size != size:
+                return f"{name} has {f.stat().st_size} bytes, {size} were written"
+        except OSError:
+            return f"{name} is missing"
+        if _file_digest(f) != digest:
+            return f"{name} has changed since it was written"
+    return None
+
+
 def _read_done(folder):
     try:
         return json.loads((folder / "done.json").read_text())
@@ -133,6 +181,7 @@ def _analyze_one(sample, options, out, key, stats):
         analyze(sample.path, spacing=sample.spacing, unit=sample.unit, out=tmp, progress=False,
                 **opts)
         write_json(tmp / "done.json", {"key": key, "content": stats[0], "stats": stats[1],
+                                       "outputs": _output_manifest(tmp),
                                        "sample": sample.sample, "group": sample.group,
                                        "seconds": time.perf_counter() - t0,
                                        "finished": time.time(), "skelmorph_version": __version__})
@@ -187,42 +236,149 @@ def run_cohort(manifest, out, options=None, workers=1, scheduler=None, progress=
     unknown = sorted(set(options) - ANALYZE_OPTIONS)
     if unknown:
         raise SkelmorphError(f"unknown analysis option(s): {', '.join(unknown)}")
+    from ..options import validate_options
+    validate_options(options, where="analysis options")
     out = Path(out)
-    (out / "samples").mkdir(parents=True, exist_ok=True)
-    for stale in (out / "samples").glob(".*.tmp-*"):
-        shutil.rmtree(stale, ignore_errors=True)  # left by a killed run
+    if out.exists() and not out.is_dir():
+        raise SkelmorphError(f"--out {out} is a file, not a folder")
+    try:
+        (out / "samples").mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise SkelmorphError(f"cannot create the study folder {out}: {exc.strerror}") from None
+    if not os.access(out, os.W_OK):
+        raise SkelmorphError(f"the study folder {out} is not writable")
+    workers = _cap_workers(workers, scheduler)
     report = RunReport()
-    todo = []
-    for s in samples:
-        done = _read_done(out / "samples" / s.sample)
-        content, stats = _content_hash(s.path, done)
-        key = _cache_key(s, content, options)
-        if done and done.get("key") == key:
-            report.cached.append(s.sample)
-        else:
+    with study_lock(out), _stop_on_signals() as stop:
+        for stale in (out / "samples").glob(".*.tmp-*"):
+            shutil.rmtree(stale, ignore_errors=True)  # ours is the only run: left by a dead one
+        for stale in (out / "samples").glob(".*.old-*"):
+            shutil.rmtree(stale, ignore_errors=True)
+        todo = []
+        for s in samples:
+            folder = out / "samples" / s.sample
+            done = _read_done(folder)
+            content, stats = _content_hash(s.path, done)
+            key = _cache_key(s, content, options)
+            if done and done.get("key") == key:
+                problem = verify_outputs(folder, done)
+                if problem is None:
+                    report.cached.append(s.sample)
+                    continue
+                report.repaired[s.sample] = problem
+                warnings.warn(f"sample {s.sample}: cached results are damaged ({problem}); "
+                              "recomputing", stacklevel=2)
             todo.append((s, key, (content, stats)))
-    bar = Progress(len(todo), "cohort", enabled=progress and bool(todo))
-    for result in _execute(todo, options, out, workers, scheduler):
-        if result["status"] == "done":
-            report.computed.append(result["sample"])
-        else:
-            report.failed[result["sample"]] = result["error"]
-        bar.update(note=f"{result['sample']} {result['status']}")
-    by_id = {s.sample: s for s in samples}
-    write_csv(out / "failures.csv", {
-        "sample": list(report.failed), "path": [str(by_id[k].path) for k in report.failed],
-        "error": list(report.failed.values())})
-    collect_tables(samples, out)
+        bar = Progress(len(todo), "cohort", enabled=progress and bool(todo))
+        try:
+            for result in _execute(todo, options, out, workers, scheduler, stop):
+                if result["status"] == "done":
+                    report.computed.append(result["sample"])
+                else:
+                    report.failed[result["sample"]] = result["error"]
+                bar.update(note=f"{result['sample']} {result['status']}")
+        except KeyboardInterrupt:
+            report.interrupted = True
+        missing = collect_tables(samples, out)
+        for sid, why in missing.items():  # every row ends in one table or the other
+            if sid not in report.failed:
+                report.failed[sid] = why
+        for sid in report.failed:
+            if sid in report.cached:
+                report.cached.remove(sid)
+        by_id = {s.sample: s for s in samples}
+        write_csv(out / "failures.csv", {
+            "sample": list(report.failed), "path": [str(by_id[k].path) for k in report.failed],
+            "error": list(report.failed.values())})
     report.seconds = time.perf_counter() - t_start
     write_json(out / "run.json", {
         "n_samples": len(samples), "computed": len(report.computed), "cached": len(report.cached),
-        "failed": len(report.failed), "options": options, "workers": workers,
+        "failed": len(report.failed), "repaired": report.repaired,
+        "interrupted": report.interrupted, "options": options, "workers": workers,
         "scheduler": str(scheduler) if scheduler else None, "seconds": report.seconds,
         "skelmorph_version": __version__})
     return report
 
 
-def _execute(todo, options, out, workers, scheduler):
+def _cap_workers(workers, scheduler):
+    workers = int(workers)
+    if workers < 1:
+        raise SkelmorphError("--workers must be at least 1")
+    try:
+        cores = len(os.sched_getaffinity(0))
+    except AttributeError:  # not on every platform
+        cores = os.cpu_count() or 1
+    if scheduler is None and workers > cores:
+        warnings.warn(f"--workers {workers} is more than the {cores} cores available; "
+                      f"using {cores}", stacklevel=3)
+        return cores
+    return workers
+
+
+@contextlib.contextmanager
+def study_lock(out):
+    """Exclusive advisory lock on a study folder for the whole run."""
+    import fcntl
+    path = Path(out) / ".skelmorph.lock"
+    fh = open(path, "a+")
+    try:
+        try:
+            fcntl.flock(fh, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except OSError:
+            fh.seek(0)
+            owner = fh.read().strip() or "another process"
+            raise SkelmorphError(f"the study folder {out} is in use by another run ({owner}); "
+                                 "wait for it to finish or use another --out") from None
+        fh.seek(0)
+        fh.truncate()
+        fh.write(f"pid {os.getpid()}")
+        fh.flush()
+        yield
+    finally:
+        fh.close()  # releases the lock
+
+
+@contextlib.contextmanager
+def _stop_on_signals():
+    """Turn SIGTERM into KeyboardInterrupt (as SIGINT) in the main thread, and
+    remember which signal came, so the CLI can exit 130 or 143."""
+    import threading
+    state = {"signal": None}
+    if threading.current_thread() is not threading.main_thread():
+        yield state
+        return
+
+    def handler(signum, frame):
+        state["signal"] = signum
+        raise KeyboardInterrupt
+
+    old = {sig: signal.signal(sig, handler) for sig in (signal.SIGINT, signal.SIGTERM)}
+    try:
+        yield state
+    finally:
+        for sig, h in old.items():
+            signal.signal(sig, h)
+        if state["signal"] is not None:
+            LAST_SIGNAL[0] = state["signal"]
+
+
+#: The signal that stopped the last run in this process (for the exit code).
+LAST_SIGNAL = [None]
+
+
+def _die_with_parent():
+    """Worker initializer: ask the kernel to kill this worker when its parent dies
+    (Linux); let the parent alone handle Ctrl-C."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    try:
+        import ctypes
+        libc = ctypes.CDLL("libc.so.6", use_errno=True)
+        libc.prctl(1, signal.SIGKILL)  # PR_SET_PDEATHSIG
+    except (OSError, AttributeError):  # not Linux
+        pass
+
+
+def _execute(todo, options, out, workers, scheduler, stop=None):
     """Yield results as samples finish, from this process, a pool or a Dask cluster."""
     if not todo:
         return
@@ -244,10 +400,21 @@ def _execute(todo, options, out, workers, scheduler):
             yield _analyze_one(s, options, out, key, stats)
         return
     from concurrent.futures import ProcessPoolExecutor, as_completed
-    with ProcessPoolExecutor(max_workers=int(workers)) as pool:
+    pool = ProcessPoolExecutor(max_workers=int(workers), initializer=_die_with_parent)
+    try:
         futures = [pool.submit(_analyze_one, s, options, out, key, stats) for s, key, stats in todo]
         for fut in as_completed(futures):
             yield fut.result()
+    except BaseException:
+        # Stop now: drop queued samples and end the running ones (their
+        # temporary folders are cleaned by the next run).
+        workers_now = list((getattr(pool, "_processes", None) or {}).values())
+        pool.shutdown(wait=False, cancel_futures=True)
+        for proc in workers_now:
+            with contextlib.suppress(Exception):
+                proc.kill()
+        raise
+    pool.shutdown(wait=True)
 
 
 # ------------------------------------------------------------------ tables
@@ -270,19 +437,27 @@ def collect_tables(samples, out):
     tables with the sample and group on every row.
     """
     out = Path(out)
-    rows, prof, bars = [], [], []
+    rows, prof, bars, missing, renamed = [], [], [], {}, set()
     for s in samples:
         folder = out / "samples" / s.sample
         done = _read_done(folder)
         if not done:
+            missing[s.sample] = "no finished results"
             continue
         try:
             summary = json.loads((folder / "summary.json").read_text())
         except (OSError, ValueError):
+            missing[s.sample] = "summary.json is missing or unreadable"
             continue
         row = {"sample": s.sample, "group": s.group, "path": str(s.path),
-               "spacing": " ".join(str(x) for x in summary.get("spacing", [])), **s.meta}
-        row.update(dict(_scalar_items(summary)))
+               "spacing": " ".join(str(x) for x in summary.get("spacing", []))}
+        results = dict(_scalar_items(summary))
+        for k, v in s.meta.items():  # metadata never overwrites a result
+            if k in results or k in row:
+                renamed.add(k)
+                k = f"meta_{k}"
+            row[k] = v
+        row.update(results)
         rows.append(row)
         for name, store in (("profiles.csv", prof), ("barcode.csv", bars)):
             f = folder / name
@@ -290,9 +465,13 @@ def collect_tables(samples, out):
                 with open(f, newline="") as fh:
                     for r in csv.DictReader(fh):
                         store.append({"sample": s.sample, "group": s.group, **r})
+    for k in sorted(renamed):
+        warnings.warn(f"manifest column {k!r} is named like a result; it is written to "
+                      f"cohort.csv as 'meta_{k}'", stacklevel=2)
     _write_rows(out / "cohort.csv", rows)
     _write_rows(out / "profiles.csv", prof)
     _write_rows(out / "barcodes.csv", bars)
+    return missing
 
 
 def _write_rows(path, rows):
@@ -305,4 +484,4 @@ def _write_rows(path, rows):
             w.writeheader()
             for r in rows:
                 w.writerow({k: ("" if v is None or (isinstance(v, float) and not np.isfinite(v))
-                                else v) for k, v in r.items()})
+                                else safe_cell(v)) for k, v in r.items()})

@@ -19,6 +19,8 @@ def new_axes(ncols=1, nrows=1, size=(4.0, 3.2), fixed=False):
     layout, which costs about a second on a many-panel figure."""
     import matplotlib
     matplotlib.use("Agg", force=False)
+    # Labels carry user text (group names, sample ids): never parse it as math.
+    matplotlib.rcParams["text.parse_math"] = False
     import matplotlib.pyplot as plt
     fig, axes = plt.subplots(nrows, ncols, figsize=(size[0] * ncols, size[1] * nrows),
                              squeeze=False, constrained_layout=not fixed)
@@ -196,6 +198,7 @@ def plot_dendrogram_heatmap(d, labels):
     """
     import matplotlib
     matplotlib.use("Agg", force=False)
+    matplotlib.rcParams["text.parse_math"] = False
     import matplotlib.pyplot as plt
     from scipy.cluster.hierarchy import dendrogram, linkage
     from scipy.spatial.distance import squareform
