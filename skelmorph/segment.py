@@ -170,6 +170,10 @@ def enhance_vessels(image, spacing, scales=None, dark=False):
     zoom = spacing / spacing.min()
     if np.allclose(zoom, 1):
         return sato(image, sigmas=sigmas, black_ridges=dark).astype(np.float32)
+    from .io import check_declared_size
+    fine_shape = np.round(np.array(image.shape) * zoom).astype(int)
+    check_declared_size(tuple(fine_shape) + (image.ndim + 1,), np.float32,
+                        "vessel enhancement on cubic voxels")  # image + Hessian terms
     fine = ndi.zoom(image, zoom, order=1, grid_mode=True, mode="nearest")
     response = sato(fine, sigmas=sigmas, black_ridges=dark).astype(np.float32)
     coords = np.meshgrid(*[(np.arange(n) + 0.5) * z - 0.5 for n, z in zip(image.shape, zoom)],

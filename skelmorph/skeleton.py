@@ -41,6 +41,8 @@ def resample_isotropic(mask, spacing):
     target = min(spacing)
     zoom = np.array(spacing) / target
     new_shape = np.round(np.array(mask.shape) * zoom).astype(int)
+    from .io import check_declared_size
+    check_declared_size(new_shape, np.float32, "resampling to cubic voxels")
     need = estimate_memory(new_shape)
     if need > 8 * 2**30:
         warnings.warn(f"resampling to isotropic voxels makes a {tuple(new_shape)} volume "
