@@ -97,7 +97,8 @@ def _parser():
                    default="thickest", help="root rule (default thickest)")
     t.add_argument("--root-point", type=float, nargs="+", metavar="C",
                    help="with --root point: position in (z) y x order, in the image unit")
-    t.add_argument("--root-face", default="z-", help="with --root face: z-, z+, y-, y+, x- or x+")
+    t.add_argument("--root-face", default=None,
+                   help="with --root face: z-, z+, y-, y+, x- or x+ (default z-)")
     t.add_argument("--tree", choices=list(TREE_METHODS) + ["none"], default="shortest",
                    help="spanning tree rule (default shortest; none skips tree descriptors)")
     t.add_argument("--trees", type=int, default=1, metavar="N",

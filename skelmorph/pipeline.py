@@ -226,6 +226,7 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
         root_face=root_face, n_radii=n_radii, paths=paths, measures=measures,
         thickness_map=thickness_map, figures=figures, work_limit=work_limit,
         max_paths=max_paths), where="analysis options")
+    _check_option_pairs(root, root_point, root_face, tree, n_trees)
     if out is not None:
         _check_out(out)
     sets = _measure_sets(measures)
@@ -313,7 +314,7 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
         t0 = time.perf_counter()
         result.trees, result.barcodes, tsum = graph_barcodes(
             graph, root=root, tree=tree, n_trees=n_trees, filtration=filtration, seed=seed,
-            point=root_point, face=root_face)
+            point=root_point, face=root_face or "z-")
         summary.update(tsum)
         timings["trees"] = time.perf_counter() - t0
     bar.update(note="trees")
@@ -323,7 +324,7 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
         t0 = time.perf_counter()
         r = summary.get("root_node")
         if r is None:
-            r = choose_root(graph, root, point=root_point, face=root_face)
+            r = choose_root(graph, root, point=root_point, face=root_face or "z-")
         result.profiles = radial_profiles(graph, root=int(r), n_radii=n_radii)
         summary.update({f"profile_{k}": v for k, v in profile_summary(result.profiles).items()})
         summary["profile_root_node"] = int(r)
@@ -348,6 +349,20 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
         write_results(result, out, figures=figures)
         bar.update(note="written")
     return result
+
+
+def _check_option_pairs(root, root_point, root_face, tree, n_trees):
+    """Options that only mean something with another one: refuse them alone,
+    naming the command-line flags."""
+    if n_trees > 1 and tree != "random":
+        raise InputError(f"--trees {n_trees} needs --tree random (the '{tree}' rule gives one "
+                         "tree)")
+    if root == "point" and root_point is None:
+        raise InputError("--root point needs --root-point with the position (z) y x")
+    if root_point is not None and root != "point":
+        raise InputError("--root-point needs --root point")
+    if root_face is not None and root != "face":
+        raise InputError("--root-face needs --root face")
 
 
 def _check_out(out):

@@ -381,3 +381,16 @@ def test_csv_cells_that_look_like_formulas_are_quoted(tmp_path):
     write_csv(tmp_path / "t.csv", {"a": np.array(["=1+2", "-x", "ok"]), "b": np.array([-1.5, 2, 3])})
     lines = (tmp_path / "t.csv").read_text().splitlines()
     assert lines[1] == "'=1+2,-1.5" and lines[2] == "'-x,2" and lines[3] == "ok,3"
+
+
+def test_options_that_need_another_are_refused_alone(tmp_path, capsys):
+    f = tmp_path / "t.npy"
+    np.save(f, sm.phantoms.make("y").mask)
+    for args, fragment in ((["--trees", "5"], "--trees 5 needs --tree random"),
+                           (["--root-face", "x+"], "--root-face needs --root face"),
+                           (["--root", "point"], "--root point needs --root-point"),
+                           (["--root-point", "1", "2", "3"], "--root-point needs --root point")):
+        assert main(["analyze", str(f), "-q", "-o", str(tmp_path / "o")] + args) == 2
+        _one_line_error(capsys, fragment)
+    assert main(["analyze", str(f), "--root", "face", "--root-face", "x+", "--radii", "0", "-q",
+                 "-o", str(tmp_path / "o")]) == 0
