@@ -99,8 +99,11 @@ def _measures(v):
         return None
     names = [v] if isinstance(v, str) else v
     allowed = ("bone", "vessel", "venation", "all", "none")
-    if not isinstance(names, (list, tuple)) or not all(n in allowed for n in names):
-        return f"must be among {', '.join(allowed)}, not {v!r}"
+    if not isinstance(names, (list, tuple)):
+        return f"must be a name or a list of names, not {v!r}"
+    bad = [n for n in names if n not in allowed]
+    if bad:
+        return f"has an unknown measure set {bad[0]!r}; choose from bone, vessel, venation or all"
     return None
 
 
