@@ -112,9 +112,11 @@ def test_a_second_run_on_a_locked_study_exits_2(small_study):
         pass
 
 
-def test_sigterm_stops_the_run_and_kills_workers(tmp_path):
+@pytest.mark.parametrize("sig", [signal.SIGTERM, signal.SIGKILL])
+def test_stopping_the_run_stops_its_workers(tmp_path, sig):
     # Six samples of a few seconds each, two workers; SIGTERM after the first
     # finishes: exit 143 within seconds, tables written, no worker left.
+    # kill -9 of the parent: the workers die with it.
     files = []
     for i in range(6):
         ph = sm.phantoms.make("foam", size=72, cell=12, rod_radius=2.0, seed=i)
@@ -132,12 +134,15 @@ def test_sigterm_stops_the_run_and_kills_workers(tmp_path):
         time.sleep(0.2)
     assert proc.poll() is None, "the run ended before it could be interrupted"
     t0 = time.time()
-    proc.send_signal(signal.SIGTERM)
+    proc.send_signal(sig)
     out, err = proc.communicate(timeout=60)
-    assert proc.returncode == 143, err
-    assert time.time() - t0 < 30
-    assert (study / "cohort.csv").exists()
-    time.sleep(1.0)
+    if sig == signal.SIGTERM:
+        assert proc.returncode == 143, err
+        assert time.time() - t0 < 30
+        assert (study / "cohort.csv").exists()
+    else:
+        assert proc.returncode == -signal.SIGKILL
+    time.sleep(1.5)
     alive = []
     for pid in os.listdir("/proc"):
         if pid.isdigit():
@@ -150,6 +155,13 @@ def test_sigterm_stops_the_run_and_kills_workers(tmp_path):
     assert not alive
     done = [p.parent.name for p in (study / "samples").glob("f*/done.json")]
     assert 1 <= len(done) < 6
+    if sig == signal.SIGKILL:  # the next run cleans up and finishes the rest
+        rerun = subprocess.run([sys.executable, "-m", "skelmorph.cli", "cohort", "run", str(man),
+                                "--out", str(study), "-q"], capture_output=True, text=True,
+                               timeout=600)
+        assert rerun.returncode == 0, rerun.stderr
+        assert not list((study / "samples").glob(".*"))
+        assert len(_rows(study, "cohort.csv")) == 6
 
 
 # ------------------------------------------------------------------ resources
