@@ -58,32 +58,28 @@ def prepare_mask(array, spacing, *, roi=None, threshold=None, dark=False, smooth
     known before segmenting, so only their box is filtered and thresholded;
     a binary image's automatic ROI (the filled outline) comes from its mask.
     """
-    from .roi import auto_roi, check_roi, field_of_view, load_roi, roi_box
+    from .roi import auto_roi, check_roi, load_roi, roi_box
     from .segment import is_binary, segment_image
 
     spacing = tuple(float(s) for s in spacing)
     voxel = float(np.prod(spacing))
-    warn, how, roi_mask = [], None, None
+    warn, how, roi_mask, image_mask = [], None, None, None
     seg = dict(threshold=threshold, dark=dark, smooth=smooth, enhance=enhance, scales=scales,
                hysteresis=hysteresis, min_object_size=min_object_size,
                max_hole_size=max_hole_size, label=label)
-    binary = is_binary(array) or label is not None
     if isinstance(roi, str) and roi == "auto":
-        if not binary:
-            roi_mask = field_of_view(array, spacing)
-            how = "auto: field of view" if roi_mask is not None else None
+        source = array
+        if is_binary(array) or label is not None:  # the outline comes from the mask
+            image_mask, steps = segment_image(array, spacing, **seg)
+            source = image_mask
+        roi_mask, found = auto_roi(source, image_mask, spacing)
+        how = "auto: " + found
+        if roi_mask is None:
+            warn.append("--roi auto found no background around the sample (less than half "
+                        "of the image border is dark); the whole image is measured")
     elif roi is not None:
         roi_mask = load_roi(roi, array.shape)
         how = f"file: {roi}" if isinstance(roi, (str, Path)) else "array"
-    image_mask = None
-    if isinstance(roi, str) and roi == "auto" and binary:
-        image_mask, steps = segment_image(array, spacing, **seg)
-        roi_mask, how = auto_roi(array if label is None else image_mask, image_mask, spacing)
-        how = "auto: " + how
-    if isinstance(roi, str) and roi == "auto" and roi_mask is None:
-        warn.append("--roi auto found no background around the sample (less than half of "
-                    "the image border is dark); the whole image is measured")
-        how = None
     if roi_mask is None:
         box = tuple(slice(0, n) for n in array.shape)
         if image_mask is None:
@@ -101,9 +97,6 @@ def prepare_mask(array, spacing, *, roi=None, threshold=None, dark=False, smooth
         mask = image_mask[box] & local_roi
     else:
         mask, steps = segment_image(array[box], spacing, roi=local_roi, **seg)
-    if not np.any(mask):
-        raise InputError("the ROI holds none of the segmented structure; check the ROI "
-                         "or the threshold (--dark)")
     check_roi(local_roi, mask)
     count = int(np.count_nonzero(roi_mask))
     info = {"source": how, "volume": count * voxel, "fraction_of_image": count / array.size,
@@ -267,6 +260,7 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
     warn = prep.warnings + segmentation_warnings(mask, graph, roi=roi_mask,
                                                  image_mask=prep.image_mask)
     inside = int(np.count_nonzero(roi_mask)) if roi_mask is not None else mask.size
+    prep.roi_info["volume_unit"] = f"{unit}^{array.ndim}"
     summary.update(
         source=source,
         image_shape=list(array.shape),

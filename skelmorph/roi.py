@@ -141,15 +141,15 @@ def filled_outline(mask):
     return out
 
 
-def auto_roi(image, mask, spacing=None):
+def auto_roi(image, mask=None, spacing=None):
     """Find the region of interest of an image.
 
     Parameters
     ----------
     image : ndarray
         The image as read (grey, or binary when already segmented).
-    mask : bool array
-        Its segmentation (used for binary images).
+    mask : bool array, optional
+        Its segmentation; default ``image`` itself (binary images).
 
     Returns
     -------
@@ -162,7 +162,7 @@ def auto_roi(image, mask, spacing=None):
     from .segment import is_binary
 
     if is_binary(image):
-        return filled_outline(mask), "filled outline"
+        return filled_outline(image if mask is None else mask), "filled outline"
     roi = field_of_view(image, spacing)
     return (roi, "field of view") if roi is not None else (None, "none found")
 
