@@ -1,6 +1,8 @@
 """The study report page and the figures it shows."""
 
+import base64
 import json
+import io
 import re
 import shutil
 import subprocess
@@ -38,12 +40,15 @@ def test_page_is_self_contained(study):
     folder, page = study
     text = page.read_text()
     assert "<script" not in text.lower()
-    assert not re.search(r"(https?:)?//[a-z0-9]", text, re.I), "external URL in the page"
+    outside = re.sub(r"data:image/png;base64,[A-Za-z0-9+/=]+", "", text)  # embedded figures
+    assert not re.search(r"(https?:)?//[a-z0-9]", outside, re.I), "external URL in the page"
     sources = re.findall(r"src=['\"]([^'\"]+)['\"]", text)
     assert len(sources) >= 6
     for src in sources:
         assert not src.startswith("/") and ".." not in src
-        img = imread(folder / src)
+        # Figures are embedded, so the page works copied alone.
+        assert src.startswith("data:image/png;base64,")
+        img = imread(io.BytesIO(base64.b64decode(src.split(",", 1)[1])), format="png")
         assert img.shape[0] > 0 and img.shape[1] > 0
     for section in ("Headline findings", "Caution", "The study", "Measures by group",
                     "Radial profiles", "Barcodes", "Distances between samples", "Embeddings",
@@ -122,7 +127,7 @@ def test_cli_report_and_sample_page(tmp_path, study, capsys):
     assert main(["analyze", str(tmp_path / "v.tif"), "--out", str(tmp_path / "a"), "--quiet",
                  "--report", "--radii", "20"]) == 0
     text = (tmp_path / "a" / "report.html").read_text()
-    assert "not a diagnosis" in text and "figures/graph.png" in text
+    assert "not a diagnosis" in text and "data:image/png;base64," in text  # graph embedded
     assert (tmp_path / "a" / "figures" / "graph.png").stat().st_size > 1000
 
 
@@ -138,7 +143,11 @@ def _chromium():
 def test_page_in_a_real_browser(study, tmp_path):
     """Headless chromium loads the page with no console errors and saves a
     full-page screenshot (kept in the test's temporary folder)."""
-    _, page = study
+    _, built = study
+    alone = tmp_path / "alone"  # the page copied alone to an empty folder
+    alone.mkdir()
+    page = alone / "report.html"
+    shutil.copy(built, page)
     shot = tmp_path / "report.png"
     proc = subprocess.run(
         [_chromium(), "--headless", "--no-sandbox", "--disable-gpu", "--hide-scrollbars",

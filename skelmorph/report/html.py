@@ -88,6 +88,24 @@ def _num(key, value, digits=3):
     return f'<span class="num" data-key="{_esc(key)}">{_fmt(value, digits)}</span>'
 
 
+def embed_images(page, folder):
+    """Put every relative PNG the page shows into the page itself (data URIs),
+    so that the file works when copied or mailed alone; the PNGs stay in
+    ``figures/`` for other uses."""
+    import base64
+    import html
+    import re
+
+    def inline(match):
+        path = Path(folder) / html.unescape(match.group(3))
+        if not path.is_file():
+            return match.group(0)
+        data = base64.b64encode(path.read_bytes()).decode("ascii")
+        return f'{match.group(1)}"data:image/png;base64,{data}"'
+
+    return re.sub(r"""(<img src=)(["'])([^"':]+?\.png)\2""", inline, page)
+
+
 def _img(src, alt, caption, wide=True):
     cls = ' class="wide"' if wide else ""
     return (f'<figure><img src="{_esc(src)}" alt="{_esc(alt)}"{cls}>'
@@ -429,7 +447,7 @@ def write_report(study, out=None, max_gallery=24, max_rows=200):
         f"<li>{_esc(r)}</li>" for r in REFERENCES) + "</ol>")
     parts.append(f"<p class='small'>Written by skelmorph {__version__}.</p></body></html>")
     with atomic_path(out) as tmp:
-        tmp.write_text("".join(parts), encoding="utf-8")
+        tmp.write_text(embed_images("".join(parts), out.parent), encoding="utf-8")
     return out
 
 
@@ -542,5 +560,5 @@ def write_sample_report(folder, result=None):
                                               [[_esc(k), _esc(v)] for k, v in _versions().items()]))
     parts.append("</body></html>")
     with atomic_path(folder / "report.html") as tmp:
-        tmp.write_text("".join(parts), encoding="utf-8")
+        tmp.write_text(embed_images("".join(parts), folder), encoding="utf-8")
     return folder / "report.html"
