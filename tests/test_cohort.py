@@ -297,3 +297,15 @@ def test_failure_messages_with_commas_stay_one_field(tmp_path):
     with open(tmp_path / "f.csv", newline="") as fh:
         rows = list(csv.DictReader(fh))
     assert rows == [{"sample": "a", "error": 'bad, very "bad", file'}]
+
+
+def test_design_notes_for_small_groups():
+    # Exact two-sided rank test bound 2 / C(n1 + n2, n1) (Mann & Whitney 1947):
+    # groups of 3 and 3 reach at best p = 0.1 > 0.05; 1 sample in a group is
+    # flagged; 8 and 8 can reach significance.
+    from skelmorph.cohort.compare import design_notes
+    notes = design_notes([3, 3], 0.05)
+    assert len(notes) == 1 and "0.1" in notes[0]
+    notes = design_notes([1, 5], 0.05)
+    assert any("fewer than 3" in n for n in notes) and any("0.333" in n for n in notes)
+    assert design_notes([8, 8], 0.05) == []

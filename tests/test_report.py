@@ -177,3 +177,18 @@ def test_page_in_a_real_browser(study, tmp_path):
     artifacts = Path(__file__).parent / "artifacts"
     artifacts.mkdir(exist_ok=True)
     shutil.copy(shot, artifacts / "report.png")
+
+
+def test_report_on_a_comparison_written_elsewhere(study, tmp_path):
+    # 'cohort compare --out X' then 'cohort report X': the comparison names
+    # its study folder, so the page finds the samples.
+    folder, _ = study
+    other = tmp_path / "cmp"
+    assert main(["cohort", "compare", str(folder), "--out", str(other), "--permutations", "5",
+                 "--repeats", "1"]) == 0
+    assert main(["cohort", "report", str(other)]) == 0
+    text = (other / "report.html").read_text()
+    assert "Headline findings" in text and "data:image/png;base64," in text
+    empty = tmp_path / "empty"
+    empty.mkdir()
+    assert main(["cohort", "report", str(empty)]) == 2

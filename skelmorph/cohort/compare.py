@@ -350,6 +350,29 @@ def cluster_ari(d, labels):
 
 
 # ------------------------------------------------------------------ compare
+def design_notes(counts, alpha):
+    """Plain warnings about a study design that cannot show much.
+
+    The smallest two-sided p-value an exact rank test can reach between two
+    groups of n1 and n2 samples is 2 / C(n1 + n2, n1) (all of one group
+    above all of the other; Mann & Whitney 1947); with the
+    Kruskal-Wallis test for more groups the pairwise bound of the two
+    smallest groups is used as a guide.
+    """
+    from math import comb
+    notes = []
+    small = [int(c) for c in counts if c < 3]
+    if small:
+        notes.append(f"{len(small)} group(s) have fewer than 3 samples: statistics, "
+                     "cross-validation and clustering are not meaningful for them")
+    a, b = sorted(int(c) for c in counts)[:2]
+    floor = 2.0 / comb(a + b, a)
+    if floor > alpha:
+        notes.append(f"with groups of {a} and {b} samples the smallest attainable p-value is "
+                     f"{floor:.3g}, above alpha = {alpha}: no measure can reach significance")
+    return notes
+
+
 def compare_cohort(study, by="group", out=None, n_repeats=10, n_permutations=100, seed=0,
                    figures=True, alpha=0.05):
     """Compare the groups of a study folder; write tables, figures and comparison.json.
@@ -373,6 +396,7 @@ def compare_cohort(study, by="group", out=None, n_repeats=10, n_permutations=100
     groups, counts = np.unique(labels, return_counts=True)
     if len(groups) < 2:
         raise SkelmorphError(f"need at least two groups in column {by!r}; found {list(groups)}")
+    notes = design_notes(counts, alpha)
     meas = scalar_measures(cohort)
     rows = {name: compare_groups(meas[name].to_numpy(float), labels) for name in meas.columns}
     q = benjamini_hochberg([r["p"] for r in rows.values()])
@@ -404,8 +428,16 @@ def compare_cohort(study, by="group", out=None, n_repeats=10, n_permutations=100
         "ari": ari,
         "nca_feature_weights": top,
         "failures": st["failures"],
+        "study": str(study_dir.resolve()),
         "caution": CAUTION,
     }
+    if np.isfinite(cls.get("cv_accuracy", np.nan)) and cls["cv_accuracy"] < cls["chance_accuracy"]:
+        notes.append(f"cross-validated accuracy {cls['cv_accuracy']:.2f} is below chance "
+                     f"({cls['chance_accuracy']:.2f}): the descriptors do not separate the "
+                     "groups")
+    result["notes"] = notes
+    for line in notes:
+        warnings.warn(line, UserWarning, stacklevel=2)
     out.mkdir(parents=True, exist_ok=True)
     table = {"measure": list(rows), "test": [r["test"] for r in rows.values()],
              "statistic": [r["statistic"] for r in rows.values()],

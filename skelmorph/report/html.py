@@ -314,22 +314,31 @@ def write_report(study, out=None, max_gallery=24, max_rows=200):
         Rows of the sample table shown (the rest is in ``cohort.csv``).
     """
     import pandas as pd
-    study = Path(study)
-    if not (study / "comparison.json").exists():
+    from ..errors import SkelmorphError
+    folder = Path(study)  # where comparison.json and its figures are
+    if not (folder / "comparison.json").exists():
+        if not (folder / "cohort.csv").exists():
+            raise SkelmorphError(f"{folder} holds neither a study (cohort.csv) nor a "
+                                 "comparison (comparison.json)")
         from ..cohort.compare import compare_cohort
-        compare_cohort(study)
-    comp = json.loads((study / "comparison.json").read_text())
+        compare_cohort(folder)
+    comp = json.loads((folder / "comparison.json").read_text())
+    # A comparison written elsewhere (compare --out) names its study folder.
+    study = folder if (folder / "cohort.csv").exists() else Path(comp.get("study", folder))
+    if not (study / "cohort.csv").exists():
+        raise SkelmorphError(f"the study of {folder / 'comparison.json'} ({study}) has no "
+                             "cohort.csv")
     cohort = pd.read_csv(study / "cohort.csv", dtype={"sample": str, "group": str})
     by = comp.get("by", "group")
     cohort = cohort[cohort["sample"].isin(comp["embedding"]["samples"])].reset_index(drop=True)
     labels = cohort[by].astype(str).to_numpy()
     run = json.loads((study / "run.json").read_text()) if (study / "run.json").exists() else {}
-    out = Path(out) if out else study / "report.html"
+    out = Path(out) if out else folder / "report.html"
     figdir = out.parent / "figures"
     figdir.mkdir(parents=True, exist_ok=True)
-    if out.parent != study and (study / "figures").exists():
+    if out.parent.resolve() != folder.resolve() and (folder / "figures").exists():
         import shutil
-        for f in (study / "figures").glob("*.png"):
+        for f in (folder / "figures").glob("*.png"):
             shutil.copy(f, figdir / f.name)
     figs = comp.get("figures", {})
     parts = [f"<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>"
@@ -370,6 +379,9 @@ def write_report(study, out=None, max_gallery=24, max_rows=200):
     # Caution.
     parts.append(f"<p class='caution'><b>Caution.</b> {_esc(comp['caution'])} The comparison "
                  "describes image structure in these samples only.</p>")
+    if comp.get("notes"):
+        parts.append("<p class='caution'><b>Design notes.</b> " + " ".join(
+            f"{_esc(n[0].upper() + n[1:])}." for n in comp["notes"]) + "</p>")
     # Study table.
     parts.append("<h2>The study</h2>")
     show = cohort.head(max_rows)
