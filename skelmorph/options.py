@@ -3,12 +3,13 @@ before any work starts (options files, cohort runs and direct calls alike)."""
 
 from __future__ import annotations
 
+import functools
 import math
 import numbers
 
 from .errors import InputError
 
-__all__ = ["ANALYZE_SCHEMA", "validate_options", "estimate_descriptor_seconds", "MAX_PATHS"]
+__all__ = ["analyze_schema", "validate_options", "estimate_descriptor_seconds", "MAX_PATHS"]
 
 #: Default limit on the estimated number of simple paths (``paths``).
 MAX_PATHS = 20_000_000
@@ -107,7 +108,9 @@ def _measures(v):
     return None
 
 
-def _schema():
+@functools.lru_cache(maxsize=None)
+def analyze_schema():
+    """Option name -> checker returning None or the reason a value is wrong."""
     from .descriptors.barcode import FILTRATIONS
     from .rooting import ROOT_METHODS, TREE_METHODS
     faces = tuple(a + s for a in "zyx" for s in "-+")
@@ -132,23 +135,17 @@ def _schema():
     }
 
 
-#: Option name -> checker returning None or the reason it is wrong.
-ANALYZE_SCHEMA = None
-
-
 def validate_options(options, where="options"):
     """Check every option at once; raise one line listing each problem.
 
     Unknown names and wrong types or ranges are errors.  Returns the options.
     """
-    global ANALYZE_SCHEMA
-    if ANALYZE_SCHEMA is None:
-        ANALYZE_SCHEMA = _schema()
+    schema = analyze_schema()
     problems = []
     for name, value in options.items():
-        check = ANALYZE_SCHEMA.get(name)
+        check = schema.get(name)
         if check is None:
-            problems.append(f"unknown option {name!r}")
+            problems.append(f"unknown option {name!r} (allowed: {', '.join(sorted(schema))})")
             continue
         why = check(value)
         if why:

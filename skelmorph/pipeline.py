@@ -15,7 +15,6 @@ from .graph import SkeletonGraph
 from .errors import InputError
 from .io import ImageData, check_image_array, normalise_unit, read_image, validate_spacing, write_csv, write_json
 from .measure.graph import branch_table, node_table, summarize
-from .segment import to_mask
 
 __all__ = ["AnalysisResult", "analyze", "write_results", "prepare_mask", "PreparedMask",
            "SegmentationWarning", "CAUTION"]
@@ -246,6 +245,11 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
     mask, roi_mask = prep.mask, prep.roi
     if channel is not None:
         prep.steps.insert(0, {"step": "colour channel", "channel": channel})
+    for step in prep.steps:  # every physical value with its unit
+        if step["step"] in ("gaussian smoothing", "vessel enhancement"):
+            step["unit"] = unit
+        elif step["step"] in ("speck removal", "hole filling", "region of interest"):
+            step["unit"] = f"{unit}^{array.ndim}"
     timings["segment"] = time.perf_counter() - t0
     bar.update(note="segmented")
     graph = skeleton_graph(mask, spacing, prune=prune, unit=unit, prune_factor=prune_factor,

@@ -21,13 +21,9 @@ _BLOB_RATIO = 3.0
 
 
 def _border_share(mask):
-    hits = total = 0
-    for axis in range(mask.ndim):
-        for end in (0, -1):
-            face = np.take(mask, end, axis=axis)
-            hits += int(np.count_nonzero(face))
-            total += face.size
-    return hits / total
+    from .roi import border_mask
+    edge = border_mask(mask.shape)
+    return np.count_nonzero(mask & edge) / np.count_nonzero(edge)
 
 
 def segmentation_warnings(mask, graph, roi=None, image_mask=None):

@@ -24,14 +24,16 @@ from scipy import ndimage as ndi
 
 from .errors import InputError
 
-__all__ = ["load_roi", "auto_roi", "check_roi", "roi_box", "field_of_view", "filled_outline"]
+__all__ = ["load_roi", "auto_roi", "check_roi", "roi_box", "field_of_view", "filled_outline",
+           "border_mask"]
 
 # A field of view is "found" only when the dark surround holds at least this
 # share of the image border; otherwise the image has no background to cut.
 _MIN_BORDER_SHARE = 0.5
 
 
-def _border(shape):
+def border_mask(shape):
+    """True on the voxels of the array's faces."""
     edge = np.zeros(shape, bool)
     for axis in range(len(shape)):
         index = [slice(None)] * len(shape)
@@ -97,7 +99,7 @@ def field_of_view(image, spacing=None, sigma=2.0, margin=None):
         low = float(threshold_otsu(sample))
     dark = smooth <= low
     labels, _ = ndi.label(dark)
-    edge = _border(image.shape)
+    edge = border_mask(image.shape)
     outside_labels = np.unique(labels[edge & dark])
     outside = np.isin(labels, outside_labels[outside_labels > 0])
     if np.count_nonzero(outside[edge]) < _MIN_BORDER_SHARE * np.count_nonzero(edge):

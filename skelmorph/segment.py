@@ -121,6 +121,11 @@ def fill_holes(mask, max_voxels):
 ENHANCE_METHODS = ("vessels",)
 
 
+def _default_scales(spacing):
+    """One to four voxels of the finest axis (physical units)."""
+    return (min(spacing), 4 * min(spacing))
+
+
 def _scale_sigmas(scales, spacing):
     """Gaussian scales (physical) -> sigmas in voxels of the finest axis, at
     most six, one voxel apart or more."""
@@ -163,9 +168,7 @@ def enhance_vessels(image, spacing, scales=None, dark=False):
     from skimage.filters import sato
 
     spacing = np.asarray(spacing, float)
-    if scales is None:
-        scales = (spacing.min(), 4 * spacing.min())
-    sigmas = _scale_sigmas(scales, spacing)
+    sigmas = _scale_sigmas(_default_scales(spacing) if scales is None else scales, spacing)
     image = np.asarray(image, np.float32)
     zoom = spacing / spacing.min()
     if np.allclose(zoom, 1):
@@ -273,8 +276,8 @@ def segment_image(image, spacing=None, *, threshold=None, dark=False, smooth=Non
                 raise InputError(f"unknown enhancement {enhance!r}; choose from "
                                  f"{', '.join(ENHANCE_METHODS)}")
             score = enhance_vessels(score, spacing, scales, dark=dark)
-            sig = _scale_sigmas(scales, spacing) * min(spacing) if scales is not None else \
-                np.linspace(1, 4, 4) * min(spacing)
+            sig = _scale_sigmas(_default_scales(spacing) if scales is None else scales,
+                                spacing) * min(spacing)
             steps.append({"step": "vessel enhancement",
                           "filter": "Sato multi-scale line filter (scikit-image sato)",
                           "scales": [float(v) for v in sig], "dark_vessels": bool(dark)})
@@ -327,9 +330,9 @@ def segment_image(image, spacing=None, *, threshold=None, dark=False, smooth=Non
         steps.append({"step": "hole filling",
                       "max_size": float(hole * voxel) if np.isfinite(hole) else "all",
                       "voxels_filled": int(np.count_nonzero(mask)) - before})
-    if roi is not None and not mask.any():
-        raise InputError("the ROI holds none of the segmented structure; check the ROI "
-                         "or the threshold (--dark)")
+    if roi is not None:
+        from .roi import check_roi
+        check_roi(roi, mask)
     return check_mask(mask), steps
 
 

@@ -131,6 +131,8 @@ def test_grey_core_scan_with_auto_roi():
     assert s["BV/TV"] == pytest.approx(ph.truth["bv_tv"], rel=0.2)
     steps = [st["step"] for st in s["preprocessing"]]
     assert steps[:3] == ["region of interest", "gaussian smoothing", "threshold"]
+    assert s["preprocessing"][1]["unit"] == ph.unit
+    assert s["preprocessing"][0]["unit"] == f"{ph.unit}^3"
     assert s["warnings"] == []
     # Without the ROI, Otsu's threshold over the whole scan separates air
     # from the core, not filling from rods: BV/TV is far off.

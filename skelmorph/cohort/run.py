@@ -37,18 +37,11 @@ import numpy as np
 from .._version import __version__
 from ..errors import SkelmorphError
 from ..io import atomic_path, safe_cell, write_csv, write_json
+from ..options import validate_options
 from .manifest import read_manifest
 
-__all__ = ["run_cohort", "load_options", "ANALYZE_OPTIONS", "RunReport", "collect_tables"]
+__all__ = ["run_cohort", "load_options", "RunReport", "collect_tables"]
 
-#: Options of :func:`skelmorph.analyze` that a cohort options file may set.
-ANALYZE_OPTIONS = {
-    "channel", "threshold", "dark", "min_object_size", "max_hole_size", "smooth", "enhance",
-    "scales", "hysteresis", "roi", "label", "prune", "prune_factor",
-    "min_branch_length", "extend_tips", "smoothing", "merge_junctions", "thinning", "root", "tree",
-    "n_trees", "filtration", "seed", "root_point", "root_face", "n_radii", "paths",
-    "measures", "thickness_map", "figures", "work_limit", "max_paths",
-}
 
 
 @dataclass
@@ -79,11 +72,6 @@ def load_options(path):
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
         raise SkelmorphError(f"options file {path} is not valid TOML: {exc}") from None
     data = data.get("analyze", data)
-    unknown = sorted(set(data) - ANALYZE_OPTIONS)
-    if unknown:
-        raise SkelmorphError(f"options file {path}: unknown option(s) {', '.join(unknown)}; "
-                             f"allowed: {', '.join(sorted(ANALYZE_OPTIONS))}")
-    from ..options import validate_options
     return validate_options(dict(data), where=f"options file {path}")
 
 
@@ -232,12 +220,7 @@ def run_cohort(manifest, out, options=None, workers=1, scheduler=None, progress=
     samples = manifest if isinstance(manifest, list) else read_manifest(manifest)
     if isinstance(options, (str, Path)):
         options = load_options(options)
-    options = dict(options or {})
-    unknown = sorted(set(options) - ANALYZE_OPTIONS)
-    if unknown:
-        raise SkelmorphError(f"unknown analysis option(s): {', '.join(unknown)}")
-    from ..options import validate_options
-    validate_options(options, where="analysis options")
+    options = validate_options(dict(options or {}), where="analysis options")
     out = Path(out)
     if out.exists() and not out.is_dir():
         raise SkelmorphError(f"--out {out} is a file, not a folder")

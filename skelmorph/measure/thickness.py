@@ -137,7 +137,6 @@ def local_thickness(mask, spacing=None, method="ridge", dist=None):
         m = int(np.searchsorted(off_len, radius, side="left"))  # offsets with |o| < radius
         if m == 0:
             continue
-        d = deltas[:m]
         _paint(out, c_sorted[a:b], deltas[:m], np.float32(2 * radius))
     out = out.reshape(padded_shape)[tuple(slice(pad, pad + s) for s in out_shape)]
     return np.where(mask, out, np.float32(0))

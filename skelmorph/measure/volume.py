@@ -111,7 +111,7 @@ def euler_in_region(mask, region=None):
     r = (np.ones(m.shape, np.float32) if region is None
          else np.pad(np.asarray(region, bool), 1).astype(np.float32))
     n = np.array(m.shape) - 1  # cell positions along an axis: vertices n, voxels n + 1
-    total = -float(r[m].sum())  # cubes
+    total = -float(r[m].sum(dtype=np.float64))  # cubes
     for dims in range(3):  # cells spanning `dims` axes with a voxel extent
         sign = (-1.0) ** dims
         for spans in itertools.combinations(range(3), dims):
@@ -126,7 +126,7 @@ def euler_in_region(mask, region=None):
                 occupied = m[index] if occupied is None else occupied | m[index]
                 weight = r[index].copy() if weight is None else weight + r[index]
             share = 2 ** len(corner_axes)
-            total += sign * float(weight[occupied].sum()) / share
+            total += sign * float(weight[occupied].sum(dtype=np.float64)) / share
     return total
 
 
