@@ -65,6 +65,7 @@ def run_demo(out="skelmorph-demo", progress=True, workers=None):
     workers = workers or min(2, os.cpu_count() or 1)
     from .report.html import write_report
     run_cohort(manifest, out / "study", options=DEMO_OPTIONS, workers=workers, progress=progress)
-    result = compare_cohort(out / "study", by="group", n_repeats=5, n_permutations=100)
+    result = compare_cohort(out / "study", by="group", n_repeats=5, n_permutations=100,
+                           progress=progress)
     write_report(out / "study")
     return result

@@ -9,8 +9,8 @@ import time
 class Progress:
     """Progress over ``total`` steps, drawn on stderr.
 
-    On a terminal the bar redraws in place; otherwise each step is one line,
-    so logs stay readable.  ``Progress(total, enabled=False)`` is silent.
+    On a terminal the bar redraws in place; otherwise a line is written at
+    each tenth of the way (and at the end), so logs stay readable.  ``Progress(total, enabled=False)`` is silent.
     """
 
     def __init__(self, total, label="", enabled=True, stream=None):
@@ -21,12 +21,18 @@ class Progress:
         self.done = 0
         self.start = time.perf_counter()
         self.tty = hasattr(self.stream, "isatty") and self.stream.isatty()
+        self._tenth = -1
 
     def update(self, n=1, note=""):
         self.done = min(self.done + n, self.total)
         if not self.enabled:
             return
         frac = self.done / self.total
+        if not self.tty:
+            tenth = int(frac * 10)
+            if tenth == self._tenth and self.done < self.total:
+                return
+            self._tenth = tenth
         elapsed = time.perf_counter() - self.start
         eta = elapsed / frac - elapsed if frac > 0 else 0.0
         width = 24

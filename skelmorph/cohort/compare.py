@@ -93,12 +93,22 @@ def _zscore(x):
     return np.nan_to_num(z)
 
 
-def descriptor_distances(study):
+#: How barcodes are compared: the sliced Wasserstein distance (Carriere et
+#: al. 2017) by default, the exact 1-Wasserstein matching on request.
+BARCODE_DISTANCES = ("sliced", "exact")
+SLICED_DIRECTIONS = 50
+
+
+def descriptor_distances(study, barcode_distance="sliced", progress=None):
     """Distance matrices between samples, one per descriptor found.
 
     ``measures``: Euclidean on z-scored scalar measures; ``profile:<column>``:
     L1 over radius on a common grid (:func:`skelmorph.profile_distance`);
-    ``barcode``: 1-Wasserstein between elder-rule barcodes of the first tree;
+    ``barcode``: between elder-rule barcodes of the first tree, the sliced
+    Wasserstein distance over 50 directions
+    (:func:`skelmorph.descriptors.distances.sliced_wasserstein_distance`) or,
+    with ``barcode_distance="exact"``, the exact 1-Wasserstein distance
+    (cubic in the number of bars: 28 s for the 16-sample demo against 0.3 s);
     ``persistence_image``: L2 between persistence images on one grid fitted
     to the cohort; ``paths``: Euclidean on log(1 + path counts).
     """
@@ -121,14 +131,25 @@ def descriptor_distances(study):
                 out[f"profile:{col}"] = cdist(y * w, y * w, "cityblock")
     bars = study["barcodes"]
     if bars is not None and len(bars):
-        from ..descriptors.distances import wasserstein_distance
+        from ..descriptors.distances import sliced_wasserstein_matrix, wasserstein_distance
         from ..descriptors.images import PersistenceImager
         diagrams = diagrams_from_table(bars, samples)
         n = len(samples)
-        d = np.zeros((n, n))
-        for i in range(n):
-            for j in range(i + 1, n):
-                d[i, j] = d[j, i] = wasserstein_distance(diagrams[i], diagrams[j], 1)
+        if barcode_distance == "exact":
+            d = np.zeros((n, n))
+            for i in range(n):
+                for j in range(i + 1, n):
+                    d[i, j] = d[j, i] = wasserstein_distance(diagrams[i], diagrams[j], 1)
+                if progress is not None:
+                    progress(1)
+        else:
+            last = [0]
+
+            def rows_done(i):
+                if progress is not None:
+                    progress(i - last[0])
+                last[0] = i
+            d = sliced_wasserstein_matrix(diagrams, SLICED_DIRECTIONS, progress=rows_done)
         out["barcode"] = d
         if any(len(x) for x in diagrams):
             imgs = PersistenceImager(resolution=(12, 12)).fit_transform(diagrams)
@@ -151,10 +172,25 @@ def _normalised(distances):
 
 
 def _silhouette(d, labels):
-    from sklearn.metrics import silhouette_score
-    if len(set(labels)) < 2 or len(set(labels)) >= len(labels):
+    """Mean silhouette coefficient (Rousseeuw 1987) from a distance matrix;
+    samples alone in their group count 0, as in scikit-learn's
+    ``silhouette_score``.  Vectorised, because the weight search calls it
+    some 2000 times."""
+    labels = np.asarray(labels)
+    groups, code = np.unique(labels, return_inverse=True)
+    if len(groups) < 2 or len(groups) >= len(labels):
         return float("nan")
-    return float(silhouette_score(d, labels, metric="precomputed"))
+    onehot = np.eye(len(groups))[code]
+    sums = np.asarray(d, float) @ onehot                 # (n, groups)
+    sizes = onehot.sum(axis=0)
+    own = sizes[code] - 1
+    a = sums[np.arange(len(code)), code] / np.maximum(own, 1)
+    other = sums / sizes
+    other[np.arange(len(code)), code] = np.inf
+    b = other.min(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        s = np.where(own > 0, (b - a) / np.maximum(a, b), 0.0)
+    return float(np.mean(np.nan_to_num(s)))
 
 
 def _simplex_lattice(k, steps):
@@ -259,31 +295,68 @@ def feature_matrix(study):
     return X[:, keep], [n for n, k in zip(names, keep) if k]
 
 
-def _pipelines(n_neighbors, seed):
-    from sklearn.impute import SimpleImputer
-    from sklearn.neighbors import KNeighborsClassifier, NeighborhoodComponentsAnalysis
-    from sklearn.pipeline import make_pipeline
-    from sklearn.preprocessing import StandardScaler
-    base = make_pipeline(SimpleImputer(strategy="median"), StandardScaler(),
-                         KNeighborsClassifier(n_neighbors=n_neighbors))
-    learned = make_pipeline(SimpleImputer(strategy="median"), StandardScaler(),
-                            NeighborhoodComponentsAnalysis(random_state=seed, max_iter=50),
-                            KNeighborsClassifier(n_neighbors=n_neighbors))
-    return base, learned
+class _FoldModel:
+    """Median imputation, standardisation and (optionally) an NCA metric fitted
+    on training samples, with a k-nearest-neighbour vote (uniform weights,
+    ties to the first class in sorted order, as scikit-learn's
+    KNeighborsClassifier).  Written out because the classifier runs a few
+    thousand times per comparison on a dozen samples, where the general
+    pipeline's per-call overhead dominated (9 ms per prediction)."""
+
+    def __init__(self, n_neighbors, learn_metric, seed):
+        self.k, self.learn_metric, self.seed = n_neighbors, learn_metric, seed
+
+    def fit(self, X, y):
+        self.median = np.nanmedian(X, axis=0)
+        self.median = np.where(np.isfinite(self.median), self.median, 0.0)
+        Z = np.where(np.isnan(X), self.median, X)
+        self.mu, sd = Z.mean(axis=0), Z.std(axis=0)
+        self.sd = np.where(sd > 0, sd, 1.0)
+        Z = (Z - self.mu) / self.sd
+        self.nca = None
+        if self.learn_metric:
+            from sklearn.neighbors import NeighborhoodComponentsAnalysis
+            self.nca = NeighborhoodComponentsAnalysis(random_state=self.seed, max_iter=50).fit(Z, y)
+            Z = self.nca.transform(Z)
+        self.Z, self.classes = Z, np.unique(y)
+        self.y_code = np.searchsorted(self.classes, y)
+        return self
+
+    def _embed(self, X):
+        Z = (np.where(np.isnan(X), self.median, X) - self.mu) / self.sd
+        return self.nca.transform(Z) if self.nca is not None else Z
+
+    def predict(self, X):
+        Z = self._embed(X)
+        d = ((Z[:, None, :] - self.Z[None, :, :]) ** 2).sum(axis=2)
+        near = np.argsort(d, axis=1, kind="stable")[:, :self.k]
+        votes = np.zeros((len(Z), len(self.classes)), int)
+        np.add.at(votes, (np.repeat(np.arange(len(Z)), near.shape[1]), self.y_code[near].ravel()), 1)
+        return self.classes[np.argmax(votes, axis=1)]
 
 
-def classify(X, y, n_repeats=10, n_permutations=100, seed=0):
+def _cv_accuracies(X, y, splits, n_neighbors, learn_metric, seed):
+    acc = []
+    for train, test in splits:
+        model = _FoldModel(n_neighbors, learn_metric, seed).fit(X[train], y[train])
+        acc.append(float(np.mean(model.predict(X[test]) == y[test])))
+    return np.array(acc)
+
+
+def classify(X, y, n_repeats=10, n_permutations=100, seed=0, progress=None):
     """Cross-validated nearest-neighbour accuracy with and without a learned metric.
 
     Stratified k-fold (k = min(5, smallest group)) repeated ``n_repeats``
     times; the learned metric is scikit-learn's NeighborhoodComponentsAnalysis
     (Goldberger et al. 2005, NIPS 17) fitted inside each training fold.  The
-    permutation p-value (Ojala & Garriga 2010, JMLR 11:1833) refits the
-    learned pipeline on label permutations.
+    permutation p-value (Ojala & Garriga 2010, JMLR 11:1833; test 1) refits
+    the learned pipeline on ``n_permutations`` label permutations:
+    p = (1 + #{permuted score >= true score}) / (1 + n_permutations).
+    ``progress`` (callable, optional) is called once per permutation.
     """
-    from sklearn.model_selection import (RepeatedStratifiedKFold, StratifiedKFold,
-                                         cross_val_score, permutation_test_score)
+    from sklearn.model_selection import RepeatedStratifiedKFold, StratifiedKFold
     y = np.asarray(y)
+    X = np.asarray(X, float)
     _, counts = np.unique(y, return_counts=True)
     out = {"chance_accuracy": float(counts.max() / counts.sum())}
     k = int(min(5, counts.min()))
@@ -293,20 +366,28 @@ def classify(X, y, n_repeats=10, n_permutations=100, seed=0):
                    permutation_p=float("nan"), cv_folds=k)
         return out
     n_neighbors = int(max(1, min(3, counts.min() - 1)))
-    base, learned = _pipelines(n_neighbors, seed)
-    cv = RepeatedStratifiedKFold(n_splits=k, n_repeats=n_repeats, random_state=seed)
+    repeated = list(RepeatedStratifiedKFold(n_splits=k, n_repeats=n_repeats,
+                                            random_state=seed).split(X, y))
+    single = StratifiedKFold(k, shuffle=True, random_state=seed)
+    rng = np.random.default_rng(seed)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        acc_b = cross_val_score(base, X, y, cv=cv)
-        acc_l = cross_val_score(learned, X, y, cv=cv)
-        _, _, p = permutation_test_score(learned, X, y, cv=StratifiedKFold(k, shuffle=True,
-                                                                           random_state=seed),
-                                         n_permutations=n_permutations, random_state=seed)
+        acc_b = _cv_accuracies(X, y, repeated, n_neighbors, False, seed)
+        acc_l = _cv_accuracies(X, y, repeated, n_neighbors, True, seed)
+        true = _cv_accuracies(X, y, single.split(X, y), n_neighbors, True, seed).mean()
+        beaten = 0
+        for _ in range(n_permutations):
+            yp = rng.permutation(y)
+            beaten += _cv_accuracies(X, yp, single.split(X, yp), n_neighbors, True,
+                                     seed).mean() >= true
+            if progress is not None:
+                progress(1)
     out.update(cv_accuracy=float(acc_l.mean()), cv_accuracy_sd=float(acc_l.std(ddof=1)),
                cv_accuracy_baseline=float(acc_b.mean()),
                cv_accuracy_baseline_sd=float(acc_b.std(ddof=1)),
-               permutation_p=float(p), cv_folds=k, cv_repeats=n_repeats,
-               n_permutations=n_permutations, classifier=f"{n_neighbors}-nearest neighbours")
+               permutation_p=float((beaten + 1) / (n_permutations + 1)), cv_folds=k,
+               cv_repeats=n_repeats, n_permutations=n_permutations,
+               classifier=f"{n_neighbors}-nearest neighbours")
     return out
 
 
@@ -374,8 +455,11 @@ def design_notes(counts, alpha):
 
 
 def compare_cohort(study, by="group", out=None, n_repeats=10, n_permutations=100, seed=0,
-                   figures=True, alpha=0.05):
+                   figures=True, alpha=0.05, barcode_distance="sliced", progress=False):
     """Compare the groups of a study folder; write tables, figures and comparison.json.
+
+    ``barcode_distance`` is ``"sliced"`` (default) or ``"exact"`` (see
+    :func:`descriptor_distances`); ``progress`` draws a bar on stderr.
 
     Returns
     -------
@@ -388,6 +472,10 @@ def compare_cohort(study, by="group", out=None, n_repeats=10, n_permutations=100
         and the caution.
     """
     from ..pipeline import CAUTION
+    from ..progress import Progress
+    if barcode_distance not in BARCODE_DISTANCES:
+        raise SkelmorphError(f"barcode_distance must be one of {', '.join(BARCODE_DISTANCES)}, "
+                             f"not {barcode_distance!r}")
     study_dir = Path(study)
     out = Path(out) if out is not None else study_dir
     st = load_study(study_dir, by)
@@ -404,14 +492,18 @@ def compare_cohort(study, by="group", out=None, n_repeats=10, n_permutations=100
         r["q"] = float(qq)
     significant = sorted((n for n, r in rows.items() if np.isfinite(r["q"]) and r["q"] < alpha),
                          key=lambda n: rows[n]["q"])
-    distances = descriptor_distances(st)
+    bar = Progress(len(cohort) + n_permutations, "compare", enabled=progress)
+    distances = descriptor_distances(st, barcode_distance, progress=bar.update)
     weights, index, single = learn_weights(distances, labels)
     norm = _normalised(distances)
     combined = sum(w * norm[k] for k, w in weights.items())
     ari = {k: cluster_ari(d, labels) for k, d in distances.items()}
     ari["combined"] = cluster_ari(combined, labels)
     X, names = feature_matrix(st)
-    cls = classify(X, labels, n_repeats=n_repeats, n_permutations=n_permutations, seed=seed)
+    cls = classify(X, labels, n_repeats=n_repeats, n_permutations=n_permutations, seed=seed,
+                   progress=bar.update)
+    if bar.done < bar.total:
+        bar.update(bar.total - bar.done)
     feat_w, transformed = nca_feature_weights(X, labels, names, seed) if X.shape[1] else ({}, X)
     top = dict(sorted(feat_w.items(), key=lambda kv: -kv[1])[:15])
     result = {
@@ -422,6 +514,8 @@ def compare_cohort(study, by="group", out=None, n_repeats=10, n_permutations=100
         "weights": weights,
         "separation_index": {"name": SEPARATION_INDEX, "value": index,
                              "per_descriptor": single},
+        "barcode_distance": ("exact 1-Wasserstein" if barcode_distance == "exact" else
+                             f"sliced Wasserstein, {SLICED_DIRECTIONS} directions"),
         "significant_measures": significant,
         "alpha": alpha,
         "measures": rows,

@@ -18,7 +18,8 @@ from scipy.sparse.csgraph import maximum_bipartite_matching
 
 from ..errors import InputError
 
-__all__ = ["bottleneck_distance", "wasserstein_distance", "landscape", "landscape_distance"]
+__all__ = ["bottleneck_distance", "wasserstein_distance", "sliced_wasserstein_distance",
+           "sliced_wasserstein_matrix", "landscape", "landscape_distance"]
 
 
 def _as_diagram(d, name):
@@ -126,6 +127,108 @@ def wasserstein_distance(a, b, p=1.0):
     total = max(_wasserstein_cost(fa, fb, float(p)), 0.0)
     total += float(np.sum(ess ** p))
     return total ** (1.0 / p)
+
+
+def _direction_grid(n_directions):
+    """Midpoints of ``n_directions`` equal steps over [-pi/2, pi/2): unit vectors, (2, M)."""
+    theta = -np.pi / 2 + (np.arange(n_directions) + 0.5) * np.pi / n_directions
+    return np.vstack([np.cos(theta), np.sin(theta)])
+
+
+def _signed_projections(finite, directions):
+    """Positions (M, 2n) and weights (2n,) of a diagram's signed measure on each line:
+    +1 at each point's projection, -1 at its diagonal foot's projection."""
+    mid = finite.sum(axis=1) / 2.0
+    feet = np.column_stack([mid, mid])
+    pos = np.vstack([finite, feet]) @ directions
+    w = np.concatenate([np.ones(len(finite)), -np.ones(len(finite))])
+    return pos.T, w
+
+
+def _sliced_cost(pa, wa, pb, wb):
+    """Mean over directions of the 1-D Wasserstein distance between the
+    measures A + diag(B) and B + diag(A): the integral of |F_a - F_b| with F
+    the cumulative sum of each diagram's signed measure."""
+    pos = np.hstack([pa, pb])
+    if pos.shape[1] == 0:
+        return 0.0
+    w = np.concatenate([wa, -wb])
+    order = np.argsort(pos, axis=1, kind="stable")
+    xs = np.take_along_axis(pos, order, axis=1)
+    cum = np.cumsum(w[order], axis=1)[:, :-1]
+    return float(np.mean(np.sum(np.abs(cum) * np.diff(xs, axis=1), axis=1)))
+
+
+def sliced_wasserstein_distance(a, b, n_directions=50):
+    """Sliced Wasserstein distance between two diagrams (Carriere et al. 2017).
+
+    SW(A, B) = (1/pi) * integral over theta in [-pi/2, pi/2] of the 1-D
+    1-Wasserstein distance between the projections, on the line of angle
+    theta, of A + diag(B) and B + diag(A), where diag(X) are the orthogonal
+    projections of X's points onto the diagonal (Carriere, Cuturi & Oudot
+    2017, Sliced Wasserstein kernel for persistence diagrams, ICML, PMLR
+    70:664, eq. (3)).  The integral is the midpoint rule over
+    ``n_directions`` angles; each 1-D distance is exact (sorting).
+
+    It costs O(M n log n) for n points and M directions, against the
+    roughly cubic exact matching of :func:`wasserstein_distance`, and it is
+    a metric comparable to the exact one: any matching of A and B gives a
+    matching of the projected measures at most twice as long on every line
+    (orthogonal projection is 1-Lipschitz), so SW <= 2 W1 with the Euclidean
+    ground metric and SW <= 2 sqrt(2) W1 with the L-infinity ground metric
+    of :func:`wasserstein_distance` (the upper bound of the paper's
+    Theorem 3.3).  A single point (b, d) against the empty diagram is at
+    sqrt(2) (d - b) / pi exactly.  Infinite-death points are matched among
+    themselves as in :func:`wasserstein_distance` and add |a - b| each.
+
+    Parameters
+    ----------
+    a, b : (n, 2) array_like
+        Diagrams of (birth, death) pairs.
+    n_directions : int
+        Angles of the quadrature; the error of the midpoint rule falls as
+        1 / M^2 where the integrand is smooth (scripts/bench.py measures it).
+
+    Returns
+    -------
+    float
+
+    Examples
+    --------
+    >>> round(sliced_wasserstein_distance([[0.0, 1.0]], [], n_directions=200), 4)
+    0.4502
+    """
+    if not int(n_directions) >= 1:
+        raise InputError("n_directions must be a positive integer")
+    fa, ea = _as_diagram(a, "a")
+    fb, eb = _as_diagram(b, "b")
+    ess = _essential_costs(ea, eb)
+    if ess is None:
+        return float("inf")
+    dirs = _direction_grid(int(n_directions))
+    return _sliced_cost(*_signed_projections(fa, dirs), *_signed_projections(fb, dirs)) \
+        + float(ess.sum())
+
+
+def sliced_wasserstein_matrix(diagrams, n_directions=50, progress=None):
+    """All pairwise :func:`sliced_wasserstein_distance` values, (n, n).
+
+    Each diagram is projected once; ``progress`` (a callable taking the
+    number of rows done) is called after each row.
+    """
+    dirs = _direction_grid(int(n_directions))
+    split = [_as_diagram(d, f"diagram {i}") for i, d in enumerate(diagrams)]
+    proj = [_signed_projections(f, dirs) for f, _ in split]
+    n = len(split)
+    out = np.zeros((n, n))
+    for i in range(n):
+        for j in range(i + 1, n):
+            ess = _essential_costs(split[i][1], split[j][1])
+            out[i, j] = out[j, i] = (float("inf") if ess is None else
+                                     _sliced_cost(*proj[i], *proj[j]) + float(ess.sum()))
+        if progress is not None:
+            progress(i + 1)
+    return out
 
 
 def bottleneck_distance(a, b):
