@@ -45,80 +45,10 @@ def _parser():
                    help="voxel size in (z) y x order, or one value; overrides the file")
     a.add_argument("--unit", default=None, help="length unit of the spacing (default um)")
     a.add_argument("--quiet", "-q", action="store_true", help="no progress bar")
-    a.add_argument("--channel", default=None,
-                   help="colour images: channel index (0, 1, 2) or 'grey'")
-    a.add_argument("--roi", default=None, metavar="FILE|auto",
-                   help="region of interest: a mask image of the same shape, or 'auto' (the "
-                        "field of view of a grey image, the filled outline of a binary one); "
-                        "all measures use it as the reference volume (default: whole image)")
-    g = a.add_argument_group("segmentation (grey images)")
-    g.add_argument("--threshold", type=float,
-                   help="grey level threshold, or of the enhanced image (default: Otsu in the ROI)")
-    g.add_argument("--dark", action="store_true", help="structure is darker than background")
-    g.add_argument("--label", type=int, default=None, metavar="N",
-                   help="label images: keep the voxels of value N (label maps are not "
-                        "thresholded unasked)")
-    g.add_argument("--smooth", type=float, default=None, metavar="SIGMA",
-                   help="Gaussian smoothing before thresholding, sigma in the image unit")
-    g.add_argument("--enhance", choices=["vessels"], default=None,
-                   help="threshold a multi-scale line filter (Sato) instead of grey levels")
-    g.add_argument("--scales", type=float, nargs=2, metavar=("MIN", "MAX"), default=None,
-                   help="with --enhance: smallest and largest filter scale, image unit "
-                        "(default 1 to 4 voxels)")
-    g.add_argument("--hysteresis", nargs="+", default=None, metavar="LEVEL",
-                   help="hysteresis thresholding: 'auto' or LOW HIGH")
-    g.add_argument("--min-object-size", type=float, metavar="SIZE",
-                   help="remove specks up to this area/volume (unit^d)")
-    g.add_argument("--max-hole-size", type=float, metavar="SIZE",
-                   help="fill enclosed holes up to this area/volume (unit^d)")
-    k = a.add_argument_group("graph")
-    k.add_argument("--no-prune", action="store_true", help="keep all spurs")
-    k.add_argument("--prune-factor", type=float, default=1.5,
-                   help="prune tip branches shorter than this x junction radius (default 1.5)")
-    k.add_argument("--min-branch-length", type=float, default=0.0,
-                   help="also prune tip branches shorter than this length (unit)")
-    k.add_argument("--extend-tips", action="store_true",
-                   help="lengthen tip branches by their tip radius")
-    k.add_argument("--thinning", choices=("ordered", "lee", "zhang"), default="ordered",
-                   help="thinning: ours, distance-ordered on the native voxel grid (default), "
-                        "or scikit-image's Lee (3D) / Zhang-Suen (2D) for comparison")
-    k.add_argument("--smoothing", type=float, default=2.0,
-                   help="centreline smoothing before measuring length, voxels (0 = none)")
-    m = a.add_argument_group("field measures")
-    m.add_argument("--measures", nargs="+", choices=["bone", "vessel", "venation", "all"],
-                   help="add the bone standard set (3D), vessel measures, leaf venation "
-                        "measures (2D), or all that apply")
-    m.add_argument("--thickness-map", action="store_true",
-                   help="bone: also write thickness.tif and separation.tif (diameters)")
-    from .descriptors.barcode import FILTRATIONS
-    from .rooting import ROOT_METHODS, TREE_METHODS
-    t = a.add_argument_group("tree descriptors (largest component)")
-    t.add_argument("--root", choices=[m for m in ROOT_METHODS if m != "point"] + ["point"],
-                   default="thickest", help="root rule (default thickest)")
-    t.add_argument("--root-point", type=float, nargs="+", metavar="C",
-                   help="with --root point: position in (z) y x order, in the image unit")
-    t.add_argument("--root-face", default=None,
-                   help="with --root face: z-, z+, y-, y+, x- or x+ (default z-)")
-    t.add_argument("--tree", choices=list(TREE_METHODS) + ["none"], default="shortest",
-                   help="spanning tree rule (default shortest; none skips tree descriptors)")
-    t.add_argument("--trees", type=int, default=1, metavar="N",
-                   help="number of random spanning trees; scalars become mean and spread")
-    t.add_argument("--filtration", choices=list(FILTRATIONS), default="radial",
-                   help="barcode filtration (default radial)")
-    t.add_argument("--seed", type=int, default=0, help="seed of random trees")
-    t.add_argument("--radii", type=int, default=200, metavar="N",
-                   help="radii of the radial (Sholl-type) profiles around the root (0 = none)")
     a.add_argument("--report", action="store_true",
                    help="also write report.html, a one-sample page with figures")
-    t.add_argument("--paths", type=int, default=None, metavar="K",
-                   help="count simple paths up to K branches and write path-poset invariants "
-                        "to paths.json")
-    t.add_argument("--work-limit", type=float, default=900.0, metavar="SECONDS",
-                   help="refuse tree descriptors, profiles and paths estimated to take longer "
-                        "(default 900)")
-    t.add_argument("--max-paths", type=float, default=None, metavar="N",
-                   help="refuse --paths when the estimated number of paths exceeds N "
-                        "(default 2e7)")
+    from .options import add_analyze_arguments
+    add_analyze_arguments(a)
 
     f = sub.add_parser("phantom", help="write a synthetic structure with its ground truth",
                        description="Write a phantom as TIFF (with voxel size) and its "
@@ -158,6 +88,10 @@ def _parser():
     k2.add_argument("--repeats", type=int, default=10,
                     help="repeats of the stratified cross-validation (default 10)")
     k2.add_argument("--seed", type=int, default=0)
+    k2.add_argument("--barcode-distance", choices=("sliced", "exact"), default="sliced",
+                    help="barcode comparison: sliced Wasserstein over 50 directions (default, "
+                         "fast) or the exact 1-Wasserstein matching (cubic in the bars)")
+    k2.add_argument("--quiet", "-q", action="store_true", help="no progress bar")
     k3 = csub.add_parser("report", help="write the study's report page (report.html)",
                          description="Write one self-contained HTML page (figures in figures/ "
                                      "beside it) for an analysed study; compares it first if "
@@ -175,47 +109,13 @@ def _parser():
     return p
 
 
-def _hysteresis(values):
-    if values is None:
-        return None
-    if values == ["auto"]:
-        return "auto"
-    try:
-        levels = [float(v) for v in values]
-    except ValueError:
-        levels = []
-    if len(levels) != 2:
-        raise SkelmorphError("--hysteresis takes 'auto' or two levels LOW HIGH, not "
-                             + " ".join(values))
-    return tuple(levels)
-
-
 def _cmd_analyze(args):
+    from .options import options_from_cli
     from .pipeline import analyze
 
     out = Path(args.out) if args.out else Path(str(Path(args.image).with_suffix("")) + "-skelmorph")
-    channel = args.channel
-    if channel is not None and channel != "grey":
-        try:
-            channel = int(channel)
-        except ValueError:
-            raise SkelmorphError(f"--channel must be an index or 'grey', not {channel!r}") from None
-    result = analyze(args.image, spacing=args.spacing, unit=args.unit, channel=channel,
-                     threshold=args.threshold, dark=args.dark,
-                     min_object_size=args.min_object_size, max_hole_size=args.max_hole_size,
-                     smooth=args.smooth, enhance=args.enhance, scales=args.scales,
-                     hysteresis=_hysteresis(args.hysteresis), roi=args.roi, label=args.label,
-                     prune=not args.no_prune, prune_factor=args.prune_factor,
-                     min_branch_length=args.min_branch_length, extend_tips=args.extend_tips,
-                     thinning=args.thinning,
-                     smoothing=args.smoothing, root=args.root,
-                     tree=None if args.tree == "none" else args.tree, n_trees=args.trees,
-                     filtration=args.filtration, seed=args.seed,
-                     root_point=args.root_point, root_face=args.root_face,
-                     n_radii=args.radii, paths=args.paths, measures=args.measures,
-                     thickness_map=args.thickness_map, work_limit=args.work_limit,
-                     max_paths=None if args.max_paths is None else int(args.max_paths),
-                     out=out, progress=not args.quiet)
+    result = analyze(args.image, spacing=args.spacing, unit=args.unit, out=out,
+                     progress=not args.quiet, **options_from_cli(args))
     if args.report:
         from .report.html import write_sample_report
         write_sample_report(out, result)
@@ -301,7 +201,8 @@ def _cmd_cohort(args):
         return 0
     from .cohort.compare import compare_cohort
     res = compare_cohort(args.study, by=args.by, out=args.out, n_repeats=args.repeats,
-                         n_permutations=args.permutations, seed=args.seed)
+                         n_permutations=args.permutations, seed=args.seed,
+                         barcode_distance=args.barcode_distance, progress=not args.quiet)
     print(headline(res))
     print(f"tables, figures and comparison.json in {args.out or args.study}/")
     print(CAUTION_TEXT)

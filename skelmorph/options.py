@@ -1,15 +1,21 @@
-"""The options of :func:`skelmorph.analyze`: their types and limits, checked
-before any work starts (options files, cohort runs and direct calls alike)."""
+"""The options of :func:`skelmorph.analyze`, defined once: name, default,
+check, help, unit and command-line settings.  The CLI flags, the TOML keys
+and the checks of options files, cohort runs and direct calls are all
+generated from :data:`ANALYZE_OPTIONS`, so one option has one name
+everywhere."""
 
 from __future__ import annotations
 
 import functools
 import math
 import numbers
+from dataclasses import dataclass, field
+from typing import Any, Callable
 
 from .errors import InputError
 
-__all__ = ["analyze_schema", "validate_options", "estimate_descriptor_seconds", "MAX_PATHS"]
+__all__ = ["Option", "ANALYZE_OPTIONS", "analyze_schema", "add_analyze_arguments",
+           "options_from_cli", "validate_options", "estimate_descriptor_seconds", "MAX_PATHS"]
 
 #: Default limit on the estimated number of simple paths (``paths``).
 MAX_PATHS = 20_000_000
@@ -108,31 +114,191 @@ def _measures(v):
     return None
 
 
+@dataclass(frozen=True)
+class Option:
+    """One analysis option: the keyword of :func:`skelmorph.analyze`, the key
+    of a TOML options file and of ``run.json``, and the command-line flag
+    ``--<name with dashes>``, all generated from this one definition.
+
+    ``cli`` holds the extra argparse settings (type, nargs, metavar,
+    choices); booleans get ``--name`` / ``--no-name``.  ``unit`` names the
+    kind of physical value ('length', 'length^d', 's') or is empty.
+    """
+
+    name: str
+    default: Any
+    check: Callable[[Any], Any]
+    help: str
+    group: str
+    unit: str = ""
+    cli: dict = field(default_factory=dict)
+
+    @property
+    def flag(self):
+        return "--" + self.name.replace("_", "-")
+
+
+def _tree_choice(v):
+    from .rooting import TREE_METHODS
+    return _choice(*TREE_METHODS, "none", none=True)(v)
+
+
+def _root_choice(v):
+    from .rooting import ROOT_METHODS
+    return _choice(*ROOT_METHODS)(v)
+
+
+def _filtration_choice(v):
+    from .descriptors.barcode import FILTRATIONS
+    return _choice(*FILTRATIONS)(v)
+
+
+def _root_point(v):
+    if v is None or (isinstance(v, (list, tuple)) and len(v) in (2, 3)
+                     and all(map(_is_number, v))):
+        return None
+    return f"must be 2 or 3 numbers, not {v!r}"
+
+
+_FACES = tuple(a + s for a in "zyx" for s in "-+")
+_SEG, _GRAPH, _MEAS, _TREE = ("segmentation (grey images)", "graph", "field measures",
+                              "tree descriptors (largest component)")
+
+#: Every option of :func:`skelmorph.analyze` except the image, its voxel size
+#: and unit, the output folder and the progress bar.
+ANALYZE_OPTIONS = (
+    Option("channel", None, _channel, "colour images: channel index (0-3) or 'grey'", "input",
+           cli={"metavar": "C"}),
+    Option("roi", None, _roi, "region of interest: a mask image of the same shape, or 'auto' "
+           "(the field of view of a grey image, the filled outline of a binary one); all "
+           "measures use it as the reference volume (default: whole image)", "input",
+           cli={"metavar": "FILE|auto"}),
+    Option("threshold", None, _number(), "grey level threshold, or of the enhanced image "
+           "(default: Otsu in the ROI)", _SEG, cli={"type": float}),
+    Option("dark", False, _boolean, "the structure is darker than the background", _SEG),
+    Option("label", None, _integer(-2**63, 2**63 - 1), "label images: keep the voxels of value "
+           "N (label maps are not thresholded unasked)", _SEG, cli={"type": int, "metavar": "N"}),
+    Option("smooth", None, _number(0), "Gaussian smoothing before thresholding, sigma",
+           _SEG, "length", cli={"type": float, "metavar": "SIGMA"}),
+    Option("enhance", None, _choice("vessels", none=True), "threshold a multi-scale line "
+           "filter (Sato) instead of grey levels", _SEG, cli={"choices": ["vessels"]}),
+    Option("scales", None, _numbers(2, positive=True), "with --enhance: smallest and largest "
+           "filter scale (default 1 to 4 voxels)", _SEG, "length",
+           cli={"type": float, "nargs": 2, "metavar": ("MIN", "MAX")}),
+    Option("hysteresis", None, _hysteresis, "hysteresis thresholding: 'auto' or LOW HIGH",
+           _SEG, cli={"nargs": "+", "metavar": "LEVEL"}),
+    Option("min_object_size", None, _number(0), "remove specks up to this area/volume", _SEG,
+           "length^d", cli={"type": float, "metavar": "SIZE"}),
+    Option("max_hole_size", None, _number(0, inf=True), "fill enclosed holes up to this "
+           "area/volume", _SEG, "length^d", cli={"type": float, "metavar": "SIZE"}),
+    Option("thinning", "ordered", _choice("ordered", "lee", "zhang"), "thinning: ours, "
+           "distance-ordered on the native voxel grid, or scikit-image's Lee (3D) / "
+           "Zhang-Suen (2D) for comparison", _GRAPH, cli={"choices": ["ordered", "lee", "zhang"]}),
+    Option("prune", True, _boolean, "prune spurs (tip branches shorter than the prune factor "
+           "times their junction's radius)", _GRAPH),
+    Option("prune_factor", 1.5, _number(0), "prune tip branches shorter than this times the "
+           "junction radius", _GRAPH, cli={"type": float}),
+    Option("min_branch_length", 0.0, _number(0, none=False), "also prune tip branches shorter "
+           "than this", _GRAPH, "length", cli={"type": float}),
+    Option("extend_tips", False, _boolean, "lengthen tip branches by their tip radius", _GRAPH),
+    Option("smoothing", 2.0, _number(0, 100, none=False), "centreline smoothing before "
+           "measuring length, voxels (0 = none)", _GRAPH, cli={"type": float}),
+    Option("merge_junctions", True, _boolean, "contract branches of at most 3 voxels between "
+           "junctions into one node", _GRAPH),
+    Option("measures", None, _measures, "field measure sets: bone (3D), vessel, venation (2D), "
+           "all that apply, or none", _MEAS,
+           cli={"nargs": "+", "choices": ["bone", "vessel", "venation", "all", "none"]}),
+    Option("thickness_map", False, _boolean, "bone: also write thickness.tif and "
+           "separation.tif (diameters)", _MEAS),
+    Option("root", "thickest", _root_choice, "root rule", _TREE,
+           cli={"choices": lambda: __import__("skelmorph.rooting").rooting.ROOT_METHODS}),
+    Option("root_point", None, _root_point, "with --root point: position in (z) y x order",
+           _TREE, "length", cli={"type": float, "nargs": "+", "metavar": "C"}),
+    Option("root_face", None, _choice(*_FACES, none=True), "with --root face: z-, z+, y-, y+, "
+           "x- or x+ (default z-)", _TREE, cli={"choices": list(_FACES)}),
+    Option("tree", "shortest", _tree_choice, "spanning tree rule ('none' skips the tree "
+           "descriptors)", _TREE,
+           cli={"choices": lambda: [*__import__("skelmorph.rooting").rooting.TREE_METHODS,
+                                    "none"]}),
+    Option("n_trees", 1, _integer(1, 100_000, none=False), "with --tree random: number of "
+           "random spanning trees; scalars become mean and spread", _TREE,
+           cli={"type": int, "metavar": "N"}),
+    Option("filtration", "radial", _filtration_choice, "barcode filtration", _TREE,
+           cli={"choices": lambda: __import__(
+               "skelmorph.descriptors.barcode").descriptors.barcode.FILTRATIONS}),
+    Option("seed", 0, _integer(0, 2**32 - 1, none=False), "seed of random trees", _TREE,
+           cli={"type": int}),
+    Option("n_radii", 200, _integer(0, 1_000_000, none=False), "radii of the radial (Sholl-type) "
+           "profiles around the root (0 = none)", _TREE, cli={"type": int, "metavar": "N"}),
+    Option("paths", None, _integer(0, 64), "count simple paths up to K branches and write "
+           "path-poset invariants to paths.json", _TREE, cli={"type": int, "metavar": "K"}),
+    Option("work_limit", 900.0, _number(0, inf=True), "refuse tree descriptors, profiles and "
+           "paths estimated to take longer", _TREE, "s",
+           cli={"type": float, "metavar": "SECONDS"}),
+    Option("max_paths", None, _integer(0, 10**15), "refuse --paths when the estimated number "
+           "of paths exceeds N (default 2e7)", _TREE,
+           cli={"type": lambda v: int(float(v)), "metavar": "N"}),
+    Option("figures", True, _boolean, "write the per-sample figures (PNG)", "output"),
+)
+
+
 @functools.lru_cache(maxsize=None)
 def analyze_schema():
     """Option name -> checker returning None or the reason a value is wrong."""
-    from .descriptors.barcode import FILTRATIONS
-    from .rooting import ROOT_METHODS, TREE_METHODS
-    faces = tuple(a + s for a in "zyx" for s in "-+")
-    return {
-        "channel": _channel, "threshold": _number(), "dark": _boolean,
-        "min_object_size": _number(0), "max_hole_size": _number(0, inf=True),
-        "smooth": _number(0), "enhance": _choice("vessels", none=True),
-        "scales": _numbers(2, positive=True), "hysteresis": _hysteresis, "roi": _roi,
-        "label": _integer(-2**63, 2**63 - 1), "prune": _boolean, "prune_factor": _number(0),
-        "min_branch_length": _number(0, none=False), "extend_tips": _boolean,
-        "smoothing": _number(0, 100, none=False), "merge_junctions": _boolean,
-        "thinning": _choice("ordered", "lee", "zhang"), "root": _choice(*ROOT_METHODS),
-        "tree": _choice(*TREE_METHODS, none=True), "n_trees": _integer(1, 100_000, none=False),
-        "filtration": _choice(*FILTRATIONS), "seed": _integer(0, 2**32 - 1, none=False),
-        "root_point": lambda v: None if v is None else (
-            None if isinstance(v, (list, tuple)) and len(v) in (2, 3) and all(map(_is_number, v))
-            else f"must be 2 or 3 numbers, not {v!r}"),
-        "root_face": _choice(*faces, none=True), "n_radii": _integer(0, 1_000_000, none=False),
-        "paths": _integer(0, 64), "measures": _measures, "thickness_map": _boolean,
-        "figures": _boolean, "work_limit": _number(0, inf=True),
-        "max_paths": _integer(0, 10**15),
-    }
+    return {o.name: o.check for o in ANALYZE_OPTIONS}
+
+
+def option(name):
+    """The :class:`Option` called ``name``."""
+    return {o.name: o for o in ANALYZE_OPTIONS}[name]
+
+
+def add_analyze_arguments(parser):
+    """Add one flag per analysis option to an argparse parser, grouped."""
+    import argparse
+    groups = {}
+    for o in ANALYZE_OPTIONS:
+        if o.group not in groups:
+            groups[o.group] = parser.add_argument_group(o.group)
+        unit = {"length": " (image unit)", "length^d": " (image unit^d)",
+                "s": " (seconds)"}.get(o.unit, "")
+        default = "" if o.default is None or isinstance(o.default, bool) else \
+            f" (default {o.default})"
+        cli = dict(o.cli)
+        if callable(cli.get("choices")):
+            cli["choices"] = list(cli["choices"]())
+        if isinstance(o.default, bool):
+            groups[o.group].add_argument(o.flag, dest=o.name, default=o.default,
+                                         action=argparse.BooleanOptionalAction,
+                                         help=o.help + unit)
+        else:
+            groups[o.group].add_argument(o.flag, dest=o.name, default=o.default,
+                                         help=o.help + unit + default, **cli)
+    return parser
+
+
+def options_from_cli(args):
+    """The analysis keywords from parsed command-line arguments (one name each)."""
+    out = {o.name: getattr(args, o.name) for o in ANALYZE_OPTIONS}
+    h = out["hysteresis"]
+    if h is not None:
+        if h == ["auto"]:
+            out["hysteresis"] = "auto"
+        else:
+            try:
+                out["hysteresis"] = tuple(float(v) for v in h)
+            except ValueError:
+                out["hysteresis"] = h
+            if len(out["hysteresis"]) != 2 or isinstance(out["hysteresis"], list):
+                raise InputError("--hysteresis takes 'auto' or two levels LOW HIGH, not "
+                                 + " ".join(map(str, h)))
+    c = out["channel"]
+    if c is not None and c != "grey":
+        try:
+            out["channel"] = int(c)
+        except ValueError:
+            raise InputError(f"--channel must be an index or 'grey', not {c!r}") from None
+    return out
 
 
 def validate_options(options, where="options"):

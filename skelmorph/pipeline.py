@@ -165,7 +165,9 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
         Tree descriptors of the largest component: root rule
         (:func:`skelmorph.choose_root`), spanning rule and number of trees
         (:func:`skelmorph.spanning_trees`), barcode filtration
-        (:func:`skelmorph.barcode`).  ``tree=None`` skips them.
+        (:func:`skelmorph.barcode`).  ``tree=None`` (or ``"none"``) skips them.
+        Every option is defined once in :data:`skelmorph.options.ANALYZE_OPTIONS`
+        (the same names on the command line, with dashes, and in TOML files).
     n_radii : int
         Radii of the radial profiles around the same root
         (:func:`skelmorph.radial_profiles`); 0 skips them.
@@ -218,6 +220,7 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
         root_face=root_face, n_radii=n_radii, paths=paths, measures=measures,
         thickness_map=thickness_map, figures=figures, work_limit=work_limit,
         max_paths=max_paths), where="analysis options")
+    tree = None if tree == "none" else tree
     _check_option_pairs(root, root_point, root_face, tree, n_trees)
     if out is not None:
         _check_out(out)
@@ -296,7 +299,7 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
     if have is not None and cost["tree_bytes"] > 0.5 * have:
         raise InputError(f"{n_trees} spanning trees of this graph would need about "
                          f"{cost['tree_bytes'] / 2**30:.1f} GiB ({have / 2**30:.1f} GiB "
-                         "available); ask for fewer trees (--trees)")
+                         "available); ask for fewer trees (--n-trees)")
     seconds = cost["trees"] + cost["radii"] + cost["paths"]
     if seconds > work_limit:
         raise InputError(f"the tree descriptors, radial profiles and path counts would take about "
@@ -353,7 +356,7 @@ def _check_option_pairs(root, root_point, root_face, tree, n_trees):
     """Options that only mean something with another one: refuse them alone,
     naming the command-line flags."""
     if n_trees > 1 and tree != "random":
-        raise InputError(f"--trees {n_trees} needs --tree random (the '{tree}' rule gives one "
+        raise InputError(f"--n-trees {n_trees} needs --tree random (the '{tree}' rule gives one "
                          "tree)")
     if root == "point" and root_point is None:
         raise InputError("--root point needs --root-point with the position (z) y x")

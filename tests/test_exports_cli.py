@@ -137,13 +137,13 @@ def test_demo(tmp_path, capsys):
 
 
 def test_cli_tree_descriptors(tmp_path, capsys):
-    """--tree random --trees 3: barcode.csv holds 3 trees; scalars get a spread;
+    """--tree random --n-trees 3: barcode.csv holds 3 trees; scalars get a spread;
     bar count per tree = tips + 2 x loops of the frame (each cut makes two tips)."""
     import csv
     assert main(["phantom", "frame", "--out", str(tmp_path / "f.tif")]) == 0
     out = tmp_path / "r"
     assert main(["analyze", str(tmp_path / "f.tif"), "--out", str(out), "--quiet",
-                 "--tree", "random", "--trees", "3", "--root", "center", "--filtration", "path"]) == 0
+                 "--tree", "random", "--n-trees", "3", "--root", "center", "--filtration", "path"]) == 0
     summary = json.loads((out / "summary.json").read_text())
     assert summary["n_trees"] == 3 and summary["tree_method"] == "random"
     assert summary["barcode_n_bars"] == 2 * summary["cycle_rank"] + summary["n_tips"]
@@ -169,7 +169,7 @@ def test_cli_profiles(tmp_path):
     assert main(["phantom", "y", "--out", str(tmp_path / "y.tif")]) == 0
     out = tmp_path / "r"
     assert main(["analyze", str(tmp_path / "y.tif"), "--out", str(out), "--quiet",
-                 "--radii", "40"]) == 0
+                 "--n-radii", "40"]) == 0
     with open(out / "profiles.csv") as fh:
         rows = list(csv.DictReader(fh))
     assert len(rows) == 40 and list(rows[0]) == list(PROFILE_COLUMNS)
@@ -177,5 +177,5 @@ def test_cli_profiles(tmp_path):
     assert summary["profile_max_crossings"] == max(float(r["crossings"]) for r in rows)
     assert (out / "profiles.png").stat().st_size > 1000
     assert main(["analyze", str(tmp_path / "y.tif"), "--out", str(tmp_path / "n"), "--quiet",
-                 "--radii", "0"]) == 0
+                 "--n-radii", "0"]) == 0
     assert not (tmp_path / "n" / "profiles.csv").exists()

@@ -253,7 +253,7 @@ def test_venation_grid(cells, spurs):
 def test_cli_measures(tmp_path):
     assert main(["phantom", "lattice", "--out", str(tmp_path / "l.tif")]) == 0
     out = tmp_path / "r"
-    assert main(["analyze", str(tmp_path / "l.tif"), "--out", str(out), "--quiet", "--radii", "0",
+    assert main(["analyze", str(tmp_path / "l.tif"), "--out", str(out), "--quiet", "--n-radii", "0",
                  "--tree", "none", "--measures", "all", "--thickness-map"]) == 0
     s = json.loads((out / "summary.json").read_text())
     for key in ("BV/TV", "BS/BV", "Tb.Th", "Tb.Th.SD", "Tb.Sp", "Tb.Sp.SD", "Tb.N", "Conn.D",
@@ -267,7 +267,7 @@ def test_cli_measures(tmp_path):
     assert th.array.max() > 0 and th.spacing == (1.0, 1.0, 1.0)
     assert main(["phantom", "venation", "--out", str(tmp_path / "v.tif")]) == 0
     assert main(["analyze", str(tmp_path / "v.tif"), "--out", str(tmp_path / "v"), "--quiet",
-                 "--measures", "venation", "--radii", "0", "--tree", "none"]) == 0
+                 "--measures", "venation", "--n-radii", "0", "--tree", "none"]) == 0
     s = json.loads((tmp_path / "v" / "summary.json").read_text())
     assert s["areole_count"] == 20 and s["lamina_source"] == "network outline"
 

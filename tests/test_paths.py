@@ -187,7 +187,7 @@ def test_cli_paths(tmp_path):
     from skelmorph.cli import main
     assert main(["phantom", "frame", "--out", str(tmp_path / "f.tif")]) == 0
     assert main(["analyze", str(tmp_path / "f.tif"), "--out", str(tmp_path / "r"), "--quiet",
-                 "--paths", "3", "--radii", "0", "--tree", "none"]) == 0
+                 "--paths", "3", "--n-radii", "0", "--tree", "none"]) == 0
     data = json.loads((tmp_path / "r" / "paths.json").read_text())
     assert data["counts"][:2] == [8, 12]
     assert data["from_vertices"]["betti"] == [1, 5]

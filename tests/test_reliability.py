@@ -229,10 +229,10 @@ def test_runaway_descriptor_requests_are_refused_with_an_estimate(tmp_path, caps
         sm.analyze(ph.mask, tree=None, n_radii=0, paths=40)
     f = tmp_path / "foam.npy"
     np.save(f, ph.mask)
-    assert main(["analyze", str(f), "--radii", "1000000000", "-q", "-o", str(tmp_path / "o")]) == 2
+    assert main(["analyze", str(f), "--n-radii", "1000000000", "-q", "-o", str(tmp_path / "o")]) == 2
     _one_line_error(capsys, "n_radii must be between")
     with pytest.raises(SystemExit) as stop:  # argparse's own check, in one line too
-        main(["analyze", str(f), "--radii", "1e9", "-q", "-o", str(tmp_path / "o")])
+        main(["analyze", str(f), "--n-radii", "1e9", "-q", "-o", str(tmp_path / "o")])
     assert stop.value.code == 2
     _one_line_error(capsys, "invalid int value")
     # The limit is an option: a larger one lets the same request through.
@@ -250,7 +250,7 @@ def test_label_images_need_a_label(tmp_path, capsys):
     np.save(f, lab)
     assert main(["analyze", str(f), "-q", "-o", str(tmp_path / "o")]) == 2
     _one_line_error(capsys, "label map")
-    assert main(["analyze", str(f), "--label", "3", "--radii", "0", "-q", "-o",
+    assert main(["analyze", str(f), "--label", "3", "--n-radii", "0", "-q", "-o",
                  str(tmp_path / "o")]) == 0
     s = json.loads((tmp_path / "o" / "summary.json").read_text())
     assert s["n_components"] == 1 and s["preprocessing"][0] == {"step": "label", "value": 3}
@@ -398,11 +398,11 @@ def test_csv_cells_that_look_like_formulas_are_quoted(tmp_path):
 def test_options_that_need_another_are_refused_alone(tmp_path, capsys):
     f = tmp_path / "t.npy"
     np.save(f, sm.phantoms.make("y").mask)
-    for args, fragment in ((["--trees", "5"], "--trees 5 needs --tree random"),
+    for args, fragment in ((["--n-trees", "5"], "--n-trees 5 needs --tree random"),
                            (["--root-face", "x+"], "--root-face needs --root face"),
                            (["--root", "point"], "--root point needs --root-point"),
                            (["--root-point", "1", "2", "3"], "--root-point needs --root point")):
         assert main(["analyze", str(f), "-q", "-o", str(tmp_path / "o")] + args) == 2
         _one_line_error(capsys, fragment)
-    assert main(["analyze", str(f), "--root", "face", "--root-face", "x+", "--radii", "0", "-q",
+    assert main(["analyze", str(f), "--root", "face", "--root-face", "x+", "--n-radii", "0", "-q",
                  "-o", str(tmp_path / "o")]) == 0

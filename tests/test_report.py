@@ -125,7 +125,7 @@ def test_cli_report_and_sample_page(tmp_path, study, capsys):
     assert page.exists() and (tmp_path / "r" / "figures" / "measures.png").exists()
     assert main(["phantom", "venation", "--out", str(tmp_path / "v.tif")]) == 0
     assert main(["analyze", str(tmp_path / "v.tif"), "--out", str(tmp_path / "a"), "--quiet",
-                 "--report", "--radii", "20"]) == 0
+                 "--report", "--n-radii", "20"]) == 0
     text = (tmp_path / "a" / "report.html").read_text()
     assert "not a diagnosis" in text and "data:image/png;base64," in text  # graph embedded
     assert (tmp_path / "a" / "figures" / "graph.png").stat().st_size > 1000

@@ -381,7 +381,7 @@ def test_report_shows_warnings_and_preparation(tmp_path):
     np.save(img, data.retina()[..., 1])
     out = tmp_path / "out"
     assert main(["analyze", str(img), "--dark", "--enhance", "vessels", "--roi", "auto",
-                 "--smooth", "0.5", "--min-object-size", "100", "--radii", "0", "--tree", "none",
+                 "--smooth", "0.5", "--min-object-size", "100", "--n-radii", "0", "--tree", "none",
                  "--report", "-q", "-o", str(out)]) == 0
     page = (out / "report.html").read_text()
     assert "How the data were prepared" in page
@@ -429,6 +429,6 @@ def test_core_scan_phantom_from_the_cli(tmp_path, capsys):
     truth = json.loads(out.with_suffix(".json").read_text())["truth"]
     assert set(truth) == {"bv_tv", "core_volume", "conn_density", "pitch"}
     assert main(["analyze", str(out), "--roi", "auto", "--smooth", "1", "--measures", "bone",
-                 "--radii", "0", "--tree", "none", "-q", "-o", str(tmp_path / "o")]) == 0
+                 "--n-radii", "0", "--tree", "none", "-q", "-o", str(tmp_path / "o")]) == 0
     s = json.loads((tmp_path / "o" / "summary.json").read_text())
     assert s["BV/TV"] == pytest.approx(truth["bv_tv"], rel=0.2)
