@@ -271,7 +271,7 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
     summary.update(
         source=source,
         image_shape=list(array.shape),
-        foreground_fraction=float(np.count_nonzero(mask) / inside),
+        volume_fraction=float(np.count_nonzero(mask) / inside),
         roi=prep.roi_info,
         preprocessing=prep.steps,
         warnings=warn,
@@ -328,7 +328,6 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
             r = choose_root(graph, root, point=root_point, face=root_face or "z-")
         result.profiles = radial_profiles(graph, root=int(r), n_radii=n_radii)
         summary.update({f"profile_{k}": v for k, v in profile_summary(result.profiles).items()})
-        summary["profile_root_node"] = int(r)
         timings["profiles"] = time.perf_counter() - t0
     bar.update(note="profiles")
     if paths:
@@ -346,6 +345,7 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
         for j, x in enumerate(result.paths["counts"]):
             summary[f"paths_{j}_edges"] = x
         timings["paths"] = time.perf_counter() - t0
+    _finalise_summary(summary)
     if out is not None:
         write_results(result, out, figures=figures)
         bar.update(note="written")
@@ -377,6 +377,17 @@ def _check_out(out):
         probe = probe.parent
     if not os.access(probe, os.W_OK | os.X_OK):
         raise InputError(f"cannot write results into {out}: {probe} is not writable")
+
+
+def _finalise_summary(summary):
+    """One name per quantity, counts as integers, and one ``units`` map for
+    every numeric key (from :mod:`skelmorph.results`)."""
+    from .results import cast_counts, units_map
+    if "BV/TV" in summary:  # the bone set's name for the same share
+        summary.pop("volume_fraction", None)
+    cast_counts(summary)
+    summary["units"] = units_map(summary)
+    return summary
 
 
 MEASURE_SETS = ("bone", "vessel", "venation")

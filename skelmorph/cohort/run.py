@@ -402,6 +402,8 @@ def _execute(todo, options, out, workers, scheduler, stop=None):
 
 # ------------------------------------------------------------------ tables
 def _scalar_items(summary):
+    if "image_shape" in summary:
+        yield "ndim", len(summary["image_shape"])
     for k, v in summary.items():
         if isinstance(v, bool):
             yield k, int(v)

@@ -61,9 +61,8 @@ def venation_measures(graph, veins, spacing, unit="um", region=None, origin=None
         veins, 4-connected, not touching the lamina edge or image border),
         ``areole_density`` (per unit^2), ``mean_areole_area`` (unit^2),
         ``free_ending_veinlets`` (tips inside the lamina, farther than their
-        radius plus two pixels from its edge), ``loop_density`` (independent
-        loops of the network per lamina area), ``lamina_area`` and
-        ``lamina_source``.
+        radius plus two pixels from its edge), ``lamina_area`` and
+        ``lamina_source``.  Units are in :mod:`skelmorph.results`.
     """
     veins = np.asarray(veins, bool)
     if veins.ndim != 2 or graph.ndim != 2:
@@ -104,10 +103,6 @@ def venation_measures(graph, veins, spacing, unit="um", region=None, origin=None
         "areole_density": len(areole_areas) / area if area > 0 else float("nan"),
         "mean_areole_area": float(areole_areas.mean()) if len(areole_areas) else float("nan"),
         "free_ending_veinlets": int(inner.sum()),
-        "loop_density": graph.cycle_rank / area if area > 0 else float("nan"),
         "lamina_area": area,
         "lamina_source": source,
-        "venation_units": {"VLA": f"{unit} {unit}^-2", "areole_density": f"{unit}^-2",
-                           "mean_areole_area": f"{unit}^2", "loop_density": f"{unit}^-2",
-                           "lamina_area": f"{unit}^2"},
     }

@@ -269,7 +269,6 @@ def vessel_measures(graph, mask, spacing, unit="um", sample_step=None, min_curva
         ok = np.isfinite(values) & (weights > 0)
         return float(np.sum(values[ok] * weights[ok]) / np.sum(weights[ok])) if ok.any() else float("nan")
 
-    per_area = "^-2" if mask.ndim == 2 else "^-3"
     summary = {
         "length_density": float(L.sum()) / tv,
         "volume_fraction": float(np.count_nonzero(mask if roi is None else mask & roi)) / inside,
@@ -282,10 +281,6 @@ def vessel_measures(graph, mask, spacing, unit="um", sample_step=None, min_curva
         "mean_inflection_count_metric": wmean(tort["inflection_count_metric"], w),
         "mean_sum_of_angles": wmean(tort["sum_of_angles"], L),
         "radius_histogram": {"edges": edges.tolist(), "length": hist.tolist()},
-        "vessel_units": {"length_density": f"{unit} {unit}{per_area}",
-                         "volume_fraction": "1", "murray_exponent": "1",
-                         "median_daughter_angle": "degree", "mean_sum_of_angles": f"rad {unit}^-1",
-                         "radius_histogram": f"edges {unit}, length {unit}"},
     }
     columns = {"distance_metric": tort["distance_metric"], "inflections": tort["inflections"],
                "inflection_count_metric": tort["inflection_count_metric"],

@@ -330,7 +330,6 @@ def bone_measures(mask, spacing, unit="um", thickness_maps=False, progress=None,
     cavities = count_cavities(m)
     da, axes = mil_fabric(m, spacing, roi=roi)
     step("surface, connectivity, anisotropy")
-    u = unit
     out = {
         "BV/TV": bv / tv,
         "BS/BV": bs / bv,
@@ -344,10 +343,6 @@ def bone_measures(mask, spacing, unit="um", thickness_maps=False, progress=None,
         "euler_characteristic": chi, "euler_edge_corrected": dchi, "cavities": cavities,
         "MIL_axes": [float(a) for a in axes],
         "thickness_lattice_step": th_step, "separation_lattice_step": sp_step,
-        "bone_units": {"BV/TV": "1", "BS/BV": f"{u}^-1", "Tb.Th": u, "Tb.Th.SD": u, "Tb.Sp": u,
-                       "Tb.Sp.SD": u, "Tb.N": f"{u}^-1", "Conn.D": f"{u}^-3", "SMI": "1",
-                       "DA": "1 (MIL_max / MIL_min)", "TV": f"{u}^3", "BV": f"{u}^3",
-                       "BS": f"{u}^2"},
     }
     if thickness_maps:
         maps = {}
