@@ -119,34 +119,42 @@ def _cmd_analyze(args):
     if args.report:
         from .report.html import write_sample_report
         write_sample_report(out, result)
-    s = result.summary
-    u = s["unit"]
-    print(f"{args.image}: {len(s['image_shape'])}D image {tuple(s['image_shape'])}, "
-          f"voxel {tuple(s['spacing'])} {u}")
-    print(f"  total length     {s['total_length']:.4g} {u}")
-    print(f"  branches         {s['n_branches']}  (junctions {s['n_junctions']}, tips {s['n_tips']})")
-    print(f"  components       {s['n_components']}")
-    print(f"  loops            {s['cycle_rank']}")
-    print(f"  mean radius      {s['mean_radius']:.4g} {u}")
-    if s["roi"]["source"] != "whole image":
-        print(f"  ROI              {s['roi']['source']}, {s['roi']['volume']:.4g} {u}^"
-              f"{len(s['image_shape'])} ({s['roi']['fraction_of_image']:.0%} of the image)")
-    if "barcode_n_bars" in s:
-        print(f"  barcode          {s['barcode_n_bars']:.4g} bars, total persistence "
-              f"{s['barcode_total_persistence']:.4g} {u} ({s['tree_method']} tree, "
-              f"root {s['root_method']}, {s['filtration']} filtration)")
-        print(f"  Strahler order   {s['max_strahler_order']:.3g} (bifurcation ratio "
-              f"{s['bifurcation_ratio']:.3g})")
-    for key in ("BV/TV", "Tb.Th", "Tb.Sp", "Tb.N", "Conn.D", "SMI", "DA", "length_density",
-                "murray_exponent", "VLA", "areole_count", "free_ending_veinlets"):
-        if key in s:
-            print(f"  {key:<16} {s[key]:.4g}")
-    if "profile_max_crossings" in s:
-        print(f"  radial profile   max {s['profile_max_crossings']:.4g} crossings at "
-              f"{s['profile_radius_of_max_crossings']:.4g} {u} from the root")
+    print(summary_lines(args.image, result.summary))
     files = ", ".join(sorted(p.name for p in out.iterdir() if not p.name.startswith(".")))
     print(f"results in {out}/ ({files})")
     print(CAUTION_TEXT)
+
+
+#: Keys printed after 'skelmorph analyze', in this order, when present.
+_PRINTED = ("total_length", "n_branches", "n_junctions", "n_tips", "n_components", "cycle_rank",
+            "mean_radius", "volume_fraction", "BV/TV", "Tb.Th", "Tb.Sp", "Tb.N", "Conn.D", "SMI",
+            "DA", "length_density", "murray_exponent", "VLA", "areole_count",
+            "free_ending_veinlets", "barcode_n_bars", "barcode_total_persistence",
+            "max_strahler_order", "profile_max_crossings", "profile_radius_of_max_crossings")
+
+
+def summary_lines(image, s):
+    """The few lines printed after an analysis: values with units, from the
+    results registry."""
+    from .results import describe, format_value
+    u = s["unit"]
+    units = s.get("units", {})
+    lines = [f"{image}: {len(s['image_shape'])}D image {tuple(s['image_shape'])}, "
+             f"voxel {tuple(s['spacing'])} {u}"]
+    if s["roi"]["source"] != "whole image":
+        lines.append(f"  region of interest: {s['roi']['source']}, "
+                     f"{format_value(s['roi']['volume'])} {u}^{len(s['image_shape'])} "
+                     f"({s['roi']['fraction_of_image']:.0%} of the image)")
+    for key in _PRINTED:
+        if key in s:
+            unit = units.get(key, "")
+            unit = "" if unit in ("1", "") else " " + unit
+            lines.append(f"  {key:<34} {format_value(s[key]):>10}{unit:<10}  {describe(key)}"
+                         .rstrip())
+    if "tree_method" in s:
+        lines.append(f"  (trees: {s['tree_method']} spanning tree, root {s['root_method']}, "
+                     f"{s['filtration']} filtration)")
+    return "\n".join(lines)
 
 
 def _cmd_phantom(args):
@@ -221,6 +229,10 @@ def headline(res):
             parts.append(f"{m} (q={r['q']:.2g}, {r['effect_name']} {r['effect_size']:+.2f})")
         lines.append(f"measures that differ (FDR {res['alpha']}): " + "; ".join(parts)
                      + (f"; and {len(sig) - 6} more" if len(sig) > 6 else ""))
+        names = list(res["groups"])
+        if res["measures"][sig[0]]["effect_name"] == "rank-biserial r" and len(names) == 2:
+            lines.append(f"  (r > 0: {names[0]} tends to be higher than {names[1]}; r < 0: "
+                         "lower; |r| = 1: the groups do not overlap)")
     else:
         lines.append(f"no measure differs after FDR at {res['alpha']}")
     lines.append(f"cross-validated accuracy {res['cv_accuracy']:.2f} ± {res['cv_accuracy_sd']:.2f} "

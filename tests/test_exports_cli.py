@@ -1,6 +1,7 @@
 """Graph exports, the results folder and the command line."""
 
 import json
+import re
 import subprocess
 import sys
 
@@ -62,7 +63,8 @@ def test_cli_analyze_writes_results(tmp_path, capsys):
     write_tiff(tmp_path / "y.tif", p.mask, p.spacing)
     assert main(["analyze", str(tmp_path / "y.tif"), "--out", str(tmp_path / "r")]) == 0
     out = capsys.readouterr().out
-    assert "junctions 1, tips 3" in out and "not a diagnosis" in out
+    assert re.search(r"n_junctions +1 ", out) and re.search(r"n_tips +3 ", out)
+    assert re.search(r"total_length +[\d,.]+ um ", out) and "not a diagnosis" in out
     for name in ("graph.graphml", "graph.vtp", "nodes.csv", "branches.csv", "summary.json"):
         assert (tmp_path / "r" / name).stat().st_size > 0
     summary = json.loads((tmp_path / "r" / "summary.json").read_text())
