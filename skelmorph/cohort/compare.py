@@ -22,12 +22,6 @@ from .stats import benjamini_hochberg, compare_groups
 __all__ = ["compare_cohort", "load_study", "descriptor_distances", "learn_weights",
            "feature_matrix", "classify", "classical_mds", "SEPARATION_INDEX"]
 
-#: Summary keys that describe how a sample was processed, not its structure.
-NOT_MEASURES = {
-    "sample", "group", "path", "spacing", "unit", "skelmorph_version", "tip_extension", "source",
-    "root_node", "profile_root_node", "n_trees", "seed", "tree_cuts", "filtration",
-    "tree_method", "root_method", "lamina_source", "TV", "lamina_area",
-}
 SEPARATION_INDEX = "silhouette"
 PROFILE_DESCRIPTORS = ("crossings", "total_length")
 
@@ -70,9 +64,13 @@ def load_study(study, by="group"):
 
 
 def scalar_measures(cohort):
-    """Numeric summary columns that vary across samples (pandas DataFrame)."""
+    """Numeric summary columns that are structure measures of the results
+    registry (:mod:`skelmorph.results`; not processing records or manifest
+    metadata) and vary across samples (pandas DataFrame)."""
+    from ..results import PROCESSING_KEYS, lookup
     num = cohort.select_dtypes(include=[np.number])
-    keep = [c for c in num.columns if c not in NOT_MEASURES and not c.startswith("root_position")
+    keep = [c for c in num.columns if lookup(c) is not None and c not in PROCESSING_KEYS
+            and lookup(c).kind != "identifier"
             and num[c].notna().mean() >= 0.5 and np.nanstd(num[c].to_numpy(float)) > 0]
     return num[keep]
 
@@ -533,7 +531,15 @@ def compare_cohort(study, by="group", out=None, n_repeats=10, n_permutations=100
     for line in notes:
         warnings.warn(line, UserWarning, stacklevel=2)
     out.mkdir(parents=True, exist_ok=True)
-    table = {"measure": list(rows), "test": [r["test"] for r in rows.values()],
+    from ..results import describe, unit_of
+    unit = str(cohort["unit"].iloc[0]) if "unit" in cohort.columns else "um"
+    ndim = int(cohort["ndim"].iloc[0]) if "ndim" in cohort.columns else 3
+    for name, r in rows.items():
+        r["unit"] = unit_of(name, unit, ndim)
+        r["description"] = describe(name)
+    table = {"measure": list(rows), "unit": [r["unit"] for r in rows.values()],
+             "description": [r["description"] for r in rows.values()],
+             "test": [r["test"] for r in rows.values()],
              "statistic": [r["statistic"] for r in rows.values()],
              "p": [r["p"] for r in rows.values()], "q": [r["q"] for r in rows.values()],
              "effect_size": [r["effect_size"] for r in rows.values()],
@@ -567,14 +573,15 @@ def _figures(st, rows, significant, combined, before, after, labels, folder):
     cohort = st["cohort"]
     unit = str(cohort["unit"].iloc[0]) if "unit" in cohort.columns else ""
     made = {}
-    shown = (significant + [m for m in sorted(rows, key=lambda m: rows[m]["p"]
-                                              if np.isfinite(rows[m]["p"]) else 9)
-                            if m not in significant])[:8]
+    # Every significant measure (small multiples), or the eight closest to it.
+    shown = significant or [m for m in sorted(rows, key=lambda m: rows[m]["p"]
+                                              if np.isfinite(rows[m]["p"]) else 9)][:8]
     if shown:
-        fig, axes = new_axes(4, (len(shown) + 3) // 4, size=(2.8, 2.4))
+        cols = 4 if len(shown) <= 8 else 6
+        fig, axes = new_axes(cols, (len(shown) + cols - 1) // cols, size=(2.4, 2.1))
         for ax, name in zip(axes.ravel(), shown):
             plot_group_values(cohort[name].to_numpy(float), labels, ax, name,
-                              q=rows[name]["q"])
+                              q=rows[name]["q"], unit=rows[name].get("unit"))
         for ax in axes.ravel()[len(shown):]:
             ax.set_visible(False)
         save(fig, folder / "measures.png")
@@ -588,7 +595,7 @@ def _figures(st, rows, significant, combined, before, after, labels, folder):
             plot_profile_bands(prof, label_of, col, ax, unit=unit)
         save(fig, folder / "profiles.png")
         made["profiles"] = "figures/profiles.png"
-    fig = plot_dendrogram_heatmap(combined, labels)
+    fig = plot_dendrogram_heatmap(combined, labels, samples=cohort["sample"].tolist())
     save(fig, folder / "distances.png")
     made["distances"] = "figures/distances.png"
     fig, axes = new_axes(2, 1, size=(3.4, 3.0))

@@ -119,7 +119,7 @@ def _group_colours(labels):
     return names, {g: PALETTE[i % len(PALETTE)] for i, g in enumerate(names)}
 
 
-def plot_group_values(values, labels, ax, name, q=None):
+def plot_group_values(values, labels, ax, name, q=None, unit=None):
     """One measure by group: points with a median bar; returns {group: values drawn}."""
     values = np.asarray(values, float)
     labels = np.asarray(labels).astype(str)
@@ -137,7 +137,8 @@ def plot_group_values(values, labels, ax, name, q=None):
     ax.set_xticklabels(names, fontsize=8)
     title = name if q is None or not np.isfinite(q) else f"{name}\nq = {q:.2g}"
     ax.set_title(title, fontsize=8)
-    ax.set_ylabel(name, fontsize=7)
+    ax.set_ylabel(name if not unit or unit == "1" else f"{name} ({unit})", fontsize=7)
+    ax.tick_params(axis="y", labelsize=7)
     return drawn
 
 
@@ -191,8 +192,10 @@ def plot_embedding(coords, labels, ax, title):
     return drawn
 
 
-def plot_dendrogram_heatmap(d, labels):
-    """Average-linkage dendrogram above the distance matrix in leaf order.
+def plot_dendrogram_heatmap(d, labels, samples=None, max_ticks=60):
+    """Average-linkage dendrogram above the distance matrix in leaf order,
+    with sample ids on the axes (up to ``max_ticks`` samples) and a legend
+    of the group strip.
 
     Returns the figure; ``fig.skelmorph_order`` holds the leaf order drawn.
     """
@@ -205,7 +208,10 @@ def plot_dendrogram_heatmap(d, labels):
     d = np.asarray(d, float)
     labels = np.asarray(labels).astype(str)
     names, colour = _group_colours(labels)
-    fig = plt.figure(figsize=(5.2, 5.6), constrained_layout=True)
+    n = len(d)
+    named = samples is not None and n <= max_ticks
+    side = 5.2 if not named else min(12.0, max(5.2, 0.16 * n + 2.5))
+    fig = plt.figure(figsize=(side, side + 0.6), constrained_layout=True)
     gs = fig.add_gridspec(3, 2, height_ratios=[1, 0.12, 4], width_ratios=[20, 1])
     ax_d = fig.add_subplot(gs[0, 0])
     z = linkage(squareform(d, checks=False), "average")
@@ -219,10 +225,23 @@ def plot_dendrogram_heatmap(d, labels):
     ax_g.set_yticks([])
     ax_g.set_xticks([])
     ax_g.set_ylabel("group", rotation=0, ha="right", fontsize=7)
+    from matplotlib.patches import Patch
+    ax_d.legend(handles=[Patch(color=colour[g], label=g) for g in names], title="group",
+                loc="upper right", fontsize=7, title_fontsize=7, frameon=False,
+                bbox_to_anchor=(1.12, 1.0))
     ax_h = fig.add_subplot(gs[2, 0])
     im = ax_h.imshow(d[np.ix_(order, order)], cmap="cividis", aspect="auto")
-    ax_h.set_xlabel("samples (dendrogram order)")
-    ax_h.set_ylabel("samples (dendrogram order)")
+    if named:
+        ids = np.asarray(samples).astype(str)[order]
+        ax_h.set_xticks(range(n))
+        ax_h.set_xticklabels(ids, rotation=90, fontsize=6)
+        ax_h.set_yticks(range(n))
+        ax_h.set_yticklabels(ids, fontsize=6)
+        ax_h.set_xlabel("sample (dendrogram order)")
+    else:
+        ax_h.set_xticks([])
+        ax_h.set_yticks([])
+        ax_h.set_xlabel(f"{n} samples in dendrogram order (ids in distances/*.csv)")
     fig.colorbar(im, cax=fig.add_subplot(gs[2, 1]), label="combined distance (weighted, unitless)")
     fig.skelmorph_order = order
     return fig

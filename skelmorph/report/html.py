@@ -16,7 +16,7 @@ from pathlib import Path
 import numpy as np
 
 from .._version import __version__
-from ..io import atomic_path
+from ..io import atomic_path, write_json
 
 __all__ = ["write_report", "write_sample_report", "render_thumbnail", "REFERENCES"]
 
@@ -33,6 +33,12 @@ REFERENCES = [
     "images. IEEE Trans Med Imaging 22:1163-1171.",
     "Murray CD (1926) The physiological principle of minimum work. PNAS 12:207-214.",
     "Sack L, Scoffoni C (2013) Leaf venation. New Phytol 198:983-1000.",
+    "Kerby DS (2014) The simple difference formula: an approach to teaching nonparametric "
+    "correlation. Compr Psychol 3:11.",
+    "Tomczak M, Tomczak E (2014) The need to report effect size estimates revisited. Trends "
+    "Sport Sci 21:19-25.",
+    "Carrière M, Cuturi M, Oudot S (2017) Sliced Wasserstein kernel for persistence diagrams. "
+    "Proc ICML, PMLR 70:664-673.",
     "Kanari L et al. (2018) A topological representation of branching neuronal morphologies. "
     "Neuroinformatics 16:3-13.",
     "Adams H et al. (2017) Persistence images. JMLR 18(8):1-35.",
@@ -61,8 +67,8 @@ th{background:#f1f1ec}
 .caution{border-left:4px solid #b35806;background:#fff6ec;padding:.6rem 1rem}
 .num{font-weight:bold}
 figure{margin:1rem 0}figcaption{font-size:.85rem;color:#444}
-.gallery{display:flex;flex-wrap:wrap;gap:.6rem}.gallery figure{width:11rem;margin:0}
-.gallery img{width:11rem;height:auto;border:1px solid #ddd}
+.gallery{display:flex;flex-wrap:wrap;gap:.6rem}.gallery figure{width:16rem;margin:0}
+.gallery img{width:16rem;height:auto;border:1px solid #ddd}
 img.wide{max-width:100%;height:auto}
 .small{font-size:.85rem;color:#444}
 """
@@ -73,15 +79,10 @@ def _esc(x):
 
 
 def _fmt(x, digits=3):
+    from ..results import format_value
     if isinstance(x, (int, np.integer)):
-        return str(int(x))
-    try:
-        x = float(x)
-    except (TypeError, ValueError):
-        return _esc(x)
-    if not np.isfinite(x):
-        return "n/a"
-    return f"{x:.{digits}g}"
+        return format_value(int(x), digits=max(digits, 15))
+    return _esc(format_value(x, digits))
 
 
 def _num(key, value, digits=3):
@@ -147,7 +148,7 @@ def _pyvista_works():
     return _PYVISTA_OK
 
 
-def _render_pyvista(graph, path, px=300):
+def _render_pyvista(graph, path, px=300, clim=None):
     """Off-screen 3D view of the centrelines as tubes coloured by radius (pyvista)."""
     import pyvista as pv
     import vtk
@@ -156,17 +157,19 @@ def _render_pyvista(graph, path, px=300):
         vtk.vtkLogger.SetStderrVerbosity(vtk.vtkLogger.VERBOSITY_OFF)
     poly = graph.to_vtk()
     u = graph.unit
-    lo, hi = float(graph.point_radius.min()), float(graph.point_radius.max())
+    lo, hi = clim or (float(graph.point_radius.min()), float(graph.point_radius.max()))
     p = pv.Plotter(off_screen=True, window_size=(px, px))
     p.set_background("white")
     tube = poly.tube(radius=max(0.3 * float(np.median(graph.point_radius)), 1e-6))
     p.add_mesh(tube, scalars="radius", cmap="cividis", clim=(lo, hi if hi > lo else lo + 1),
                scalar_bar_args={"title": f"radius ({u})", "color": "black", "vertical": False,
-                                "position_x": 0.2, "position_y": 0.02, "width": 0.6,
-                                "height": 0.07, "title_font_size": 12, "label_font_size": 10,
-                                "n_labels": 3, "fmt": "%.2g"})
-    p.show_bounds(xtitle=f"x ({u})", ytitle=f"y ({u})", ztitle=f"z ({u})", color="black",
-                  font_size=8, n_xlabels=2, n_ylabels=2, n_zlabels=2, fmt="%.0f")
+                                "position_x": 0.2, "position_y": 0.03, "width": 0.6,
+                                "height": 0.08, "title_font_size": 16, "label_font_size": 14,
+                                "n_labels": 2, "fmt": "%.2g"})
+    # The box size in words instead of axis ticks, which are unreadable at this size.
+    extent = " x ".join(f"{v:.3g}" for v in np.ptp(graph.points, axis=0)[::-1])
+    p.add_text(f"x y z extent: {extent} {u}", position="upper_left", font_size=9,
+               color="black")
     p.camera_position = "iso"
     path = Path(path)
     with atomic_path(path) as tmp:
@@ -176,17 +179,18 @@ def _render_pyvista(graph, path, px=300):
     return lo, hi
 
 
-def render_thumbnail(graph, path, image=None, size=(3.2, 3.2), dpi=70):
+def render_thumbnail(graph, path, image=None, size=(4.0, 4.0), dpi=90, clim=None):
     """A small picture of a skeleton graph coloured by radius.
 
     3D: the centrelines as tubes rendered off-screen with pyvista when it
     can render on this machine, else a matplotlib perspective view; 2D: the
-    graph drawn over the image.  Returns the radius range (min, max) of the
-    colour scale.
+    graph drawn over the image.  ``clim`` fixes the colour scale (one per
+    study); by default it is the graph's radius range.  Returns the
+    (min, max) of the colour scale.
     """
     if graph.ndim == 3 and graph.n_edges and _pyvista_works():
         try:
-            return _render_pyvista(graph, path, px=int(size[0] * dpi * 1.3))
+            return _render_pyvista(graph, path, px=int(size[0] * dpi), clim=clim)
         except Exception:  # fall back to matplotlib below
             pass
     import matplotlib
@@ -205,7 +209,7 @@ def render_thumbnail(graph, path, image=None, size=(3.2, 3.2), dpi=70):
     segs = np.array(segs).reshape(-1, 2, graph.ndim)
     vals = np.array(vals)
     r_all = graph.point_radius
-    lo, hi = (float(r_all.min()), float(r_all.max())) if len(r_all) else (0.0, 1.0)
+    lo, hi = clim or ((float(r_all.min()), float(r_all.max())) if len(r_all) else (0.0, 1.0))
     u = graph.unit
     if graph.ndim == 3:
         from mpl_toolkits.mplot3d.art3d import Line3DCollection
@@ -219,10 +223,12 @@ def render_thumbnail(graph, path, image=None, size=(3.2, 3.2), dpi=70):
             for k, setter in enumerate((ax.set_xlim, ax.set_ylim, ax.set_zlim)):
                 c = segs[:, :, 2 - k]
                 setter(float(c.min()), float(c.max()) + 1e-9)
-        ax.set_xlabel(f"x ({u})", fontsize=6)
-        ax.set_ylabel(f"y ({u})", fontsize=6)
-        ax.set_zlabel(f"z ({u})", fontsize=6)
-        ax.tick_params(labelsize=5)
+        ax.set_xlabel(f"x ({u})", fontsize=7)
+        ax.set_ylabel(f"y ({u})", fontsize=7)
+        ax.set_zlabel(f"z ({u})", fontsize=7)
+        ax.tick_params(labelsize=6)
+        for axis in (ax.xaxis, ax.yaxis, ax.zaxis):
+            axis.set_major_locator(matplotlib.ticker.MaxNLocator(3))
     else:
         fig, ax = plt.subplots(figsize=size)
         if image is not None:
@@ -238,12 +244,12 @@ def render_thumbnail(graph, path, image=None, size=(3.2, 3.2), dpi=70):
         ax.set_aspect("equal")
         if image is None:
             ax.invert_yaxis()
-        ax.set_xlabel(f"x ({u})", fontsize=6)
-        ax.set_ylabel(f"y ({u})", fontsize=6)
-        ax.tick_params(labelsize=5)
+        ax.set_xlabel(f"x ({u})", fontsize=7)
+        ax.set_ylabel(f"y ({u})", fontsize=7)
+        ax.tick_params(labelsize=6)
     cb = fig.colorbar(lc, ax=ax, shrink=0.6)
-    cb.set_label(f"radius ({u})", fontsize=6)
-    cb.ax.tick_params(labelsize=5)
+    cb.set_label(f"radius ({u})", fontsize=7)
+    cb.ax.tick_params(labelsize=6)
     save(fig, path, dpi=dpi)
     return lo, hi
 
@@ -269,15 +275,23 @@ def _gallery(study, cohort, labels, folder, max_gallery):
     per = max(1, max_gallery // max(len(groups), 1))
     for g in groups:
         picked += [i for i in np.flatnonzero(labels == g)[:per]]
-    items = []
+    graphs = {}
     for i in picked:
+        try:
+            graphs[i] = SkeletonGraph.read(_graph_file(study / "samples" / cohort["sample"].iloc[i]))
+        except Exception:  # a sample without a readable graph gets no picture
+            continue
+    radii = [g.point_radius for g in graphs.values() if len(g.point_radius)]
+    # One colour scale for the study: the 1st-99th percentile of all radii shown.
+    clim = (tuple(float(v) for v in np.percentile(np.concatenate(radii), [1, 99]))
+            if radii else None)
+    scale_file = folder / "colour-scale.json"
+    same_scale = scale_file.exists() and json.loads(scale_file.read_text()) == list(clim or [])
+    items = []
+    for i, graph in graphs.items():
         s = cohort["sample"].iloc[i]
         thumb = folder / f"{s}.png"
-        if not thumb.exists():
-            try:
-                graph = SkeletonGraph.read(_graph_file(study / "samples" / s))
-            except Exception:  # a sample without a readable graph gets no picture
-                continue
+        if not (thumb.exists() and same_scale):
             image = None
             if graph.ndim == 2:
                 try:
@@ -285,8 +299,9 @@ def _gallery(study, cohort, labels, folder, max_gallery):
                     image = np.asarray(read_image(cohort["path"].iloc[i]).array)
                 except Exception:
                     image = None
-            render_thumbnail(graph, thumb, image=image)
+            render_thumbnail(graph, thumb, image=image, clim=clim)
         items.append((s, labels[i], f"figures/gallery/{s}.png"))
+    write_json(scale_file, list(clim or []))
     return items
 
 
@@ -353,14 +368,17 @@ def write_report(study, out=None, max_gallery=24, max_rows=200):
         items = []
         for m in sig[:10]:
             r = comp["measures"][m]
+            unit = r.get("unit") or ""
+            unit = "" if unit in ("", "1") else " " + unit
             items.append(f"<li><b>{_esc(m)}</b>: {_esc(r['effect_name'])} "
-                         f"{_num('effect:' + m, r['effect_size'])}, q = {_num('q:' + m, r['q'])}"
-                         + "".join(f", {_esc(g)} mean {_fmt(v['mean'])}"
+                         f"{_num('effect:' + m, r['effect_size'], 2)}, q = "
+                         f"{_num('q:' + m, r['q'])}"
+                         + "".join(f", {_esc(g)} mean {_fmt(v['mean'])}{_esc(unit)}"
                                    for g, v in r["groups"].items()) + "</li>")
         parts.append(f"<li>{len(sig)} measure(s) differ between groups after "
                      f"Benjamini–Hochberg correction at {comp['alpha']}:<ul>{''.join(items)}"
-                     + (f"<li>and {len(sig) - 10} more (measures.csv)</li>" if len(sig) > 10 else "")
-                     + "</ul></li>")
+                     + (f"<li>and {len(sig) - 10} more (table below)</li>" if len(sig) > 10
+                        else "") + "</ul>" + _esc(_effect_sentence(comp)) + "</li>")
     else:
         parts.append(f"<li>No measure differs between groups after Benjamini–Hochberg "
                      f"correction at {comp['alpha']}.</li>")
@@ -385,10 +403,12 @@ def write_report(study, out=None, max_gallery=24, max_rows=200):
     # Study table.
     parts.append("<h2>The study</h2>")
     show = cohort.head(max_rows)
-    rows = [[_esc(r["sample"]), _esc(r[by]), _esc(r.get("spacing", "")), _esc(r.get("unit", "")),
+    rows = [[_esc(r["sample"]), _esc(r[by]), _esc(r.get("spacing", "")),
              _fmt(r.get("total_length", float("nan"))), _fmt(r.get("cycle_rank", float("nan")))]
             for _, r in show.iterrows()]
-    parts.append(_table(["sample", by, "voxel size (z y x)", "unit", "total length", "loops"], rows))
+    u = str(cohort["unit"].iloc[0]) if "unit" in cohort.columns and len(cohort) else "um"
+    parts.append(_table(["sample", by, f"voxel size, z y x ({u})", f"total length ({u})",
+                         "cycle rank (independent loops)"], rows))
     if len(cohort) > max_rows:
         parts.append(f"<p class='small'>First {max_rows} of {len(cohort)} samples; all are in "
                      "cohort.csv.</p>")
@@ -407,8 +427,12 @@ def write_report(study, out=None, max_gallery=24, max_rows=200):
     parts.append("<h2>Measures by group</h2>")
     if "measures" in figs:
         parts.append(_img(figs["measures"], "measures by group",
-                          "Each point is a sample; bars are group medians; q is the FDR-adjusted "
-                          "p-value. Significant measures first."))
+                          "Every significant measure (or, if none, the eight closest), one panel "
+                          "each with its unit: each point is a sample, bars are group medians, "
+                          "q is the FDR-adjusted p-value."))
+    parts.append(f"<p class='small'>{_esc(_effect_sentence(comp))} p: two-sided rank test; "
+                 "q: p adjusted for the number of measures (Benjamini–Hochberg). All measures, "
+                 "most different first.</p>")
     parts.append(_measure_table(comp))
     if "profiles" in figs:
         parts.append("<h2>Radial profiles</h2>" + _img(
@@ -424,8 +448,10 @@ def write_report(study, out=None, max_gallery=24, max_rows=200):
     if "distances" in figs:
         parts.append("<h2>Distances between samples</h2>" + _img(
             figs["distances"], "distance heat map with dendrogram",
-            "Combined distance (learned weights) in dendrogram order; the strip gives the "
-            f"groups. Adjusted Rand index of the clustering: "
+            "Combined distance (learned weights; each descriptor's distances divided by their "
+            "mean, so unitless) between samples, labelled by id in dendrogram order; the strip "
+            "and legend give the groups. Barcodes are compared by "
+            f"{_esc(comp.get('barcode_distance', 'the Wasserstein distance'))}. Adjusted Rand index of the clustering: "
             f"{_num('ari:combined', comp['ari'].get('combined', float('nan')))}."))
     if "embeddings" in figs:
         parts.append("<h2>Embeddings</h2>" + _img(
@@ -474,15 +500,35 @@ def _sample_warnings(study, samples):
     return rows
 
 
-def _measure_table(comp, limit=30):
+def _effect_sentence(comp):
+    """What the sign of the effect size means, in words."""
+    if not comp["measures"]:
+        return ""
+    r = next(iter(comp["measures"].values()))
+    groups = list(r["groups"])
+    if r.get("effect_name") == "rank-biserial r" and len(groups) == 2:
+        return (f"The effect size is the rank-biserial correlation r (Kerby 2014), from -1 to "
+                f"+1: r = +1 when every {groups[0]} sample is above every {groups[1]} sample, "
+                f"-1 when every {groups[0]} sample is below, 0 when the two overlap evenly.")
+    return ("The effect size is epsilon-squared of the Kruskal-Wallis test (Tomczak & Tomczak "
+            "2014), from 0 (no difference) to 1; it has no sign.")
+
+
+def _measure_table(comp, limit=None):
+    from ..results import describe
     rows = []
     ordered = sorted(comp["measures"].items(),
                      key=lambda kv: kv[1]["q"] if np.isfinite(kv[1].get("q", np.nan)) else 9)
     for name, r in ordered[:limit]:
-        rows.append([_esc(name), _fmt(r["p"]), _fmt(r["q"]), _fmt(r["effect_size"])]
+        unit = r.get("unit") or ""
+        rows.append([f"<b>{_esc(name)}</b><br><span class='small'>"
+                     f"{_esc(r.get('description') or describe(name))}</span>",
+                     _esc(unit if unit != "1" else "(ratio or count)"),
+                     _fmt(r["p"]), _fmt(r["q"]), _fmt(r["effect_size"], 2)]
                     + [_fmt(v["mean"]) + " ± " + _fmt(v["sd"]) for v in r["groups"].values()])
     groups = list(next(iter(comp["measures"].values()))["groups"]) if comp["measures"] else []
-    return _table(["measure", "p", "q", "effect size"] + [f"{g} mean ± SD" for g in groups], rows)
+    return _table(["measure", "unit", "p", "q", "effect size"]
+                  + [f"{g} mean ± SD" for g in groups], rows)
 
 
 def _persistence_figure(study, cohort, labels, figdir):
