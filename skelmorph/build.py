@@ -43,11 +43,13 @@ from scipy import sparse
 from scipy.sparse import csgraph
 from scipy.spatial import cKDTree
 
+from .grid import c_strides, forward_offsets
+
 from ._version import __version__
 from .errors import InputError
 from .graph import SkeletonGraph
 from .io import check_image_array, normalise_unit, validate_spacing
-from ._kernels import branch_voxel_paths, cyclic_block_voxels, walk_paths
+from ._kernels import branch_voxel_paths, cyclic_block_voxels, kruskal, walk_paths
 from .polyline import polyline_lengths, smooth_polylines
 from .radius import equivalent_radius
 from .segment import as_bool_mask, check_mask, count_cavities, is_binary
@@ -65,12 +67,6 @@ def _timed(timings, name):
 
 
 # ----------------------------------------------------------------------------- voxels
-
-def _forward_offsets(ndim):
-    """Half of the 3**d - 1 neighbour offsets (the other half are their negatives)."""
-    offs = [o for o in itertools.product((-1, 0, 1), repeat=ndim) if any(o)]
-    return [np.array(o) for o in offs if next(c for c in o if c) > 0]
-
 
 def _intermediates(off):
     """Offsets w (0 < w < off componentwise) through which a link ``off`` is redundant."""
@@ -99,9 +95,7 @@ def voxel_links(coords, shape):
     """
     ndim = coords.shape[1]
     pshape = np.asarray(shape, dtype=np.int64) + 2  # padding: no wrap-around at the edges
-    strides = np.ones(ndim, dtype=np.int64)
-    for a in range(ndim - 2, -1, -1):
-        strides[a] = strides[a + 1] * pshape[a + 1]
+    strides = c_strides(pshape)
     lin = (coords.astype(np.int64) + 1) @ strides
     # Presence by a gather from the padded volume; positions by binary search
     # only for the links that exist.
@@ -109,7 +103,7 @@ def voxel_links(coords, shape):
     occupied[lin] = True
 
     pairs = []
-    for off in _forward_offsets(ndim):
+    for off in forward_offsets(ndim):
         off_lin = int(off @ strides)
         i = np.flatnonzero(occupied[lin + off_lin])
         if np.abs(off).sum() >= 2 and len(i):
@@ -172,9 +166,7 @@ def euler_characteristic(coords, shape, labels=None):
         return 0 if labels is None else np.zeros(0, np.int64)
     ndim = coords.shape[1]
     lattice = np.asarray(shape, np.int64) + 1  # cube corners run 0..shape
-    strides = np.ones(ndim, np.int64)
-    for a in range(ndim - 2, -1, -1):
-        strides[a] = strides[a + 1] * lattice[a + 1]
+    strides = c_strides(lattice)
     base = coords @ strides
     if labels is None:
         marks = np.zeros(int(np.prod(lattice)), bool)
@@ -227,7 +219,6 @@ def _radius_shells(mask, coords, spacing, reach):
     ``reach`` voxels are returned as NaN (the KD-tree finishes them).
     """
     sp = np.asarray(spacing, float)
-    ndim = mask.ndim
     limit = reach * sp.min()
     half = np.ceil(limit / sp).astype(int)
     grids = np.meshgrid(*[np.arange(-h, h + 1) for h in half], indexing="ij")
@@ -243,9 +234,7 @@ def _radius_shells(mask, coords, spacing, reach):
     # Outside the array is not background (as for the Euclidean distance transform).
     padded = np.pad(mask, [(h, h) for h in half], constant_values=True).ravel()
     pshape = np.asarray(mask.shape) + 2 * half
-    strides = np.ones(ndim, np.int64)
-    for a in range(ndim - 2, -1, -1):
-        strides[a] = strides[a + 1] * pshape[a + 1]
+    strides = c_strides(pshape)
     lin = (np.asarray(coords, np.int64) + half) @ strides
     off_lin = offs.astype(np.int64) @ strides
     result = np.full(len(lin), np.nan)
@@ -581,21 +570,7 @@ def _merge_close_junctions(w):
     n = len(w.node_pos)
     # Contract a spanning forest of the close edges only; the others close a
     # loop and stay, as self-loops of the merged node.
-    parent = np.arange(n)
-
-    def find(x):
-        while parent[x] != x:
-            parent[x] = parent[parent[x]]
-            x = parent[x]
-        return x
-
-    contract = np.zeros(len(u), bool)
-    for e in np.flatnonzero(close):  # few edges: junction pairs closer than their radii
-        a, b = find(u[e]), find(v[e])
-        if a != b:
-            parent[b] = a
-            contract[e] = True
-    close = contract
+    close = kruskal(n, u.astype(np.int64), v.astype(np.int64), np.flatnonzero(close))
     _, group = _components(n, np.column_stack([u[close], v[close]]))
     # Representative of each group: its member with the largest radius.
     order = np.lexsort((-w.node_r, group))
@@ -927,6 +902,16 @@ def skeleton_graph(mask, spacing=None, prune=True, *, unit="um", prune_factor=1.
     >>> ring[(np.hypot(yy - 20, xx - 20) < 15) & (np.hypot(yy - 20, xx - 20) > 9)] = True
     >>> skeleton_graph(ring).cycle_rank
     1
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> mask = np.zeros((5, 40, 40), bool)
+    >>> mask[2, 20, 5:35] = True          # a bar ...
+    >>> mask[2, 5:20, 20] = True          # ... and a stroke meeting it: a T
+    >>> g = skeleton_graph(mask, spacing=(1.0, 1.0, 1.0))
+    >>> g.n_nodes, g.n_edges, g.cycle_rank
+    (4, 3, 0)
     """
     from .skeleton import THINNING_METHODS
 

@@ -16,13 +16,12 @@ compiled kernel, in parallel.
 
 from __future__ import annotations
 
-import itertools
-
 import numba
 import numpy as np
 from scipy import ndimage as ndi
 
 from .. import thinning as _thinning  # noqa: F401  (selects numba's thread pool)
+from ..grid import neighbour_offsets
 
 __all__ = ["local_thickness", "ridge_centres", "bounded_local_thickness", "MAX_BALL_VOXELS"]
 
@@ -45,10 +44,6 @@ def _paint(out, centres, deltas, value):
                 out[k] = value
 
 
-def _neighbour_offsets(ndim):
-    return np.array([o for o in itertools.product((-1, 0, 1), repeat=ndim) if any(o)])
-
-
 def ridge_centres(dist, spacing):
     """Foreground voxels whose inscribed ball is not inside a neighbour's ball.
 
@@ -64,7 +59,7 @@ def ridge_centres(dist, spacing):
     p = np.ravel_multi_index(tuple(i + 1 for i in idx), shape)
     r = flat[p]
     keep = np.ones(len(p), bool)
-    for o in _neighbour_offsets(dist.ndim):
+    for o in neighbour_offsets(dist.ndim):
         step = float(np.linalg.norm(o * spacing))
         keep &= flat[p + int(o @ strides)] < r + step
     return fg[keep]
