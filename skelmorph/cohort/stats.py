@@ -13,6 +13,11 @@ def benjamini_hochberg(p):
 
     Benjamini Y, Hochberg Y (1995). Controlling the false discovery rate. J R
     Stat Soc B 57:289-300.  q_(i) = min_{j >= i} p_(j) m / j, capped at 1.
+
+    Examples
+    --------
+    >>> benjamini_hochberg([0.01, 0.04, 0.03, 0.5]).round(4).tolist()
+    [0.04, 0.0533, 0.0533, 0.5]
     """
     p = np.asarray(p, float)
     q = np.full(p.shape, np.nan)

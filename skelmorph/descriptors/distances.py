@@ -116,6 +116,11 @@ def wasserstein_distance(a, b, p=1.0):
     problems on the groups of points that can beat the diagonal together
     (see ``_wasserstein_cost``).  Infinite-death points must come in equal
     numbers and are matched among themselves.
+
+    Examples
+    --------
+    >>> wasserstein_distance([[0, 4], [1, 2]], [[0, 3]])   # 1 to move (0, 4), 0.5 to erase (1, 2)
+    1.5
     """
     if not p >= 1:
         raise InputError("p must be >= 1")
@@ -237,6 +242,11 @@ def bottleneck_distance(a, b):
     The answer is one of the finitely many pairwise costs; a binary search
     over them keeps the smallest value at which a perfect matching exists
     (Hopcroft-Karp via scipy).
+
+    Examples
+    --------
+    >>> bottleneck_distance([[0, 4], [1, 2]], [[0, 3]])
+    1.0
     """
     fa, ea = _as_diagram(a, "a")
     fb, eb = _as_diagram(b, "b")

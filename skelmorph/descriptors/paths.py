@@ -115,6 +115,12 @@ def path_counts(graph, k):
         n_j = number of simple paths with j edges, a path and its reverse
         counted once; parallel edges give distinct paths, self-loops none.
         Closed forms for j <= 3, enumeration beyond (see the module notes).
+
+    Examples
+    --------
+    >>> import networkx as nx
+    >>> path_counts(nx.cycle_graph(4), 2).tolist()    # 4 vertices, 4 edges, 4 two-edge paths
+    [4, 4, 4]
     """
     k = int(k)
     if k < 0:
