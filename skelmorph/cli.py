@@ -203,6 +203,10 @@ def _cmd_cohort(args):
         return EXIT_SOME_FAILED if rep.failed else 0
     if args.cohort_command == "report":
         from .report.html import write_report
+        if not (Path(args.study) / "comparison.json").exists() and \
+                (Path(args.study) / "cohort.csv").exists():
+            from .cohort.compare import compare_cohort
+            compare_cohort(args.study, progress=True)
         page = write_report(args.study, out=args.out, max_gallery=args.gallery)
         print(f"report: {page}")
         print(CAUTION_TEXT)

@@ -245,3 +245,20 @@ def plot_dendrogram_heatmap(d, labels, samples=None, max_ticks=60):
     fig.colorbar(im, cax=fig.add_subplot(gs[2, 1]), label="combined distance (weighted, unitless)")
     fig.skelmorph_order = order
     return fig
+
+
+def plot_persistence_means(images, shape, x_edges, y_edges, labels, unit=""):
+    """Mean persistence image per group on one colour scale; returns the figure."""
+    labels = np.asarray(labels).astype(str)
+    groups = sorted(set(labels))
+    fig, axes = new_axes(len(groups), 1, size=(3.0, 2.8))
+    vmax = max(images[labels == g].mean(0).max() for g in groups)
+    for ax, g in zip(axes.ravel(), groups):
+        mean = images[labels == g].mean(0).reshape(shape)
+        im = ax.imshow(mean, origin="lower", cmap="cividis", vmin=0, vmax=vmax, aspect="auto",
+                       extent=(x_edges[0], x_edges[-1], y_edges[0], y_edges[-1]))
+        ax.set_title(f"{g} (n = {int((labels == g).sum())})", fontsize=8)
+        ax.set_xlabel(f"birth ({unit})")
+        ax.set_ylabel(f"persistence ({unit})")
+    fig.colorbar(im, ax=axes.ravel().tolist(), shrink=0.8, label="mean density")
+    return fig

@@ -318,8 +318,8 @@ def write_report(study, out=None, max_gallery=24, max_rows=200):
     Parameters
     ----------
     study : path
-        A folder written by ``cohort run``; ``cohort compare`` runs first
-        when ``comparison.json`` is missing.
+        A folder written by ``cohort compare`` (the study folder, or its
+        ``--out`` folder); the page only shows what the comparison saved.
     out : path, optional
         Where to write the page (default ``study/report.html``); its figures
         go to ``figures/`` beside it.
@@ -335,8 +335,8 @@ def write_report(study, out=None, max_gallery=24, max_rows=200):
         if not (folder / "cohort.csv").exists():
             raise SkelmorphError(f"{folder} holds neither a study (cohort.csv) nor a "
                                  "comparison (comparison.json)")
-        from ..cohort.compare import compare_cohort
-        compare_cohort(folder)
+        raise SkelmorphError(f"{folder} has not been compared yet; run 'skelmorph cohort "
+                             "compare' first (the 'cohort report' command does it for you)")
     comp = json.loads((folder / "comparison.json").read_text())
     # A comparison written elsewhere (compare --out) names its study folder.
     study = folder if (folder / "cohort.csv").exists() else Path(comp.get("study", folder))
@@ -439,10 +439,9 @@ def write_report(study, out=None, max_gallery=24, max_rows=200):
             figs["profiles"], "radial profiles by group",
             "Median profile per group with the interquartile band, against distance from the "
             "root."))
-    pim = _persistence_figure(study, cohort, labels, figdir)
-    if pim:
+    if "persistence_images" in figs:
         parts.append("<h2>Barcodes</h2>" + _img(
-            pim, "mean persistence images by group",
+            figs["persistence_images"], "mean persistence images by group",
             "Mean persistence image per group (elder-rule barcodes of each sample's first "
             "spanning tree, one grid for the cohort)."))
     if "distances" in figs:
@@ -529,36 +528,6 @@ def _measure_table(comp, limit=None):
     groups = list(next(iter(comp["measures"].values()))["groups"]) if comp["measures"] else []
     return _table(["measure", "unit", "p", "q", "effect size"]
                   + [f"{g} mean ± SD" for g in groups], rows)
-
-
-def _persistence_figure(study, cohort, labels, figdir):
-    """Mean persistence image per group; returns the relative path or None."""
-    import pandas as pd
-
-    from ..descriptors.images import PersistenceImager
-    from .figures import new_axes, save
-    f = study / "barcodes.csv"
-    if not f.exists() or f.stat().st_size < 3:
-        return None
-    from ..descriptors.barcode import diagrams_from_table
-    diagrams = diagrams_from_table(pd.read_csv(f, dtype={"sample": str}), list(cohort["sample"]))
-    if not any(len(d) for d in diagrams):
-        return None
-    pim = PersistenceImager(resolution=(24, 24)).fit(diagrams)
-    imgs = pim.transform(diagrams)
-    groups = sorted(set(labels))
-    fig, axes = new_axes(len(groups), 1, size=(3.0, 2.8))
-    unit = str(cohort["unit"].iloc[0]) if "unit" in cohort.columns else ""
-    vmax = max(imgs[labels == g].mean(0).max() for g in groups)
-    for ax, g in zip(axes.ravel(), groups):
-        mean = imgs[labels == g].mean(0).reshape(pim.shape_)
-        ax.imshow(mean, origin="lower", cmap="cividis", vmin=0, vmax=vmax, aspect="auto",
-                  extent=(pim.x_edges_[0], pim.x_edges_[-1], pim.y_edges_[0], pim.y_edges_[-1]))
-        ax.set_title(f"{g} (n = {int((labels == g).sum())})", fontsize=8)
-        ax.set_xlabel(f"birth ({unit})")
-        ax.set_ylabel(f"persistence ({unit})")
-    save(fig, figdir / "persistence_images.png")
-    return "figures/persistence_images.png"
 
 
 def _warnings_block(lines):
