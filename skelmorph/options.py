@@ -248,11 +248,6 @@ def analyze_schema():
     return {o.name: o.check for o in ANALYZE_OPTIONS}
 
 
-def option(name):
-    """The :class:`Option` called ``name``."""
-    return {o.name: o for o in ANALYZE_OPTIONS}[name]
-
-
 def add_analyze_arguments(parser):
     """Add one flag per analysis option to an argparse parser, grouped."""
     import argparse

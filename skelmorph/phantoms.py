@@ -89,10 +89,6 @@ def _polyline_tube(shape, spacing, pts, radius, caps=True, out=None):
     return draw_tubes(shape, spacing, pts[:-1], pts[1:], radius, caps=caps, out=out)
 
 
-def _arc_length(pts):
-    return float(np.linalg.norm(np.diff(pts, axis=0), axis=1).sum())
-
-
 def _on_centre(x, spacing):
     """Move coordinates to the nearest voxel centre.
 

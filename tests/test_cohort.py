@@ -142,6 +142,7 @@ def _free_port():
         return s.getsockname()[1]
 
 
+@pytest.mark.slow
 def test_dask_scheduler_and_worker_processes(tmp_path):
     """Real 'dask scheduler' and 'dask worker' processes on loopback."""
     pytest.importorskip("distributed")
@@ -180,6 +181,7 @@ def separable(tmp_path_factory):
     return tmp / "study"
 
 
+@pytest.mark.slow
 def test_separable_cohort(separable):
     """Two generators differing in strut thickness and connectivity: the
     groups are told apart and the thickness / connectivity measures differ."""
@@ -198,6 +200,7 @@ def test_separable_cohort(separable):
         assert (separable / "figures" / f"{fig}.png").stat().st_size > 1000
 
 
+@pytest.mark.slow
 def test_null_cohort(tmp_path):
     """One generator, random labels, 10 repeats: no measure is significant
     after FDR in at least 9 of 10, and accuracy stays in the chance band."""

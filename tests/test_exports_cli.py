@@ -119,6 +119,7 @@ def test_console_script_runs_as_module(tmp_path):
     assert r.returncode == 2 and "Traceback" not in r.stderr
 
 
+@pytest.mark.slow
 def test_demo(tmp_path, capsys):
     """The demo study: thinner, partly broken struts in the bathed group are
     found (Tb.Th and the number of loops lower) and the groups are told

@@ -296,6 +296,7 @@ def test_measure_errors(tmp_path, capsys):
     assert "bone measures need a 3D image" in err and err.count("\n") == 1
 
 
+@pytest.mark.slow
 def test_bounded_local_thickness_near_exact():
     # Parallel plates 74 voxels apart: the lattice of every k-th voxel keeps
     # the mean within 4 % of the exact painting (measured -0.7 % to -3.5 %),

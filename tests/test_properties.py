@@ -59,7 +59,7 @@ def test_sparse_euler_characteristic_matches_scikit_image(seed, shape, density):
     # scikit-image's euler_number (general-purpose reference), full connectivity.
     from skimage.measure import euler_number
 
-    from skelmorph.build import euler_characteristic
+    from skelmorph.voxels import euler_characteristic
 
     mask = np.random.default_rng(seed).random(shape) < density
     assert euler_characteristic(np.argwhere(mask), shape) == euler_number(mask, connectivity=len(shape))

@@ -112,6 +112,7 @@ def test_a_second_run_on_a_locked_study_exits_2(small_study):
         pass
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("sig", [signal.SIGTERM, signal.SIGKILL])
 def test_stopping_the_run_stops_its_workers(tmp_path, sig):
     # Six samples of a few seconds each, two workers; SIGTERM after the first

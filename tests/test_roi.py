@@ -65,6 +65,7 @@ def test_euler_in_region_is_the_box_correction_and_additive():
     assert total == pytest.approx(euler_in_region(foam, whole), abs=1e-9)
 
 
+@pytest.mark.slow
 def test_cylinder_roi_conn_d_agrees_with_box_correction():
     # Square-rod lattice, Conn.D = 2/a^3 in the infinite lattice (methods
     # dossier 5.6).  Cylinders and boxes placed at random: the mean of our
@@ -234,6 +235,7 @@ def _loops(mask):
     return comps, comps + sm.segment.count_cavities(mask) - euler_number(mask, connectivity=3)
 
 
+@pytest.mark.slow
 def test_frog_vessel_label_with_auto_roi(frog_blood):
     # pyvista's frog tissue label map, label 1 (blood; label meaning from
     # memory of the dataset's list).  With --roi auto the work happens in the

@@ -174,7 +174,7 @@ def test_thick_slab_with_tunnels():
 
 def _centreline_length(mask, spacing=None):
     """Length of the thinned centreline: the sum of its voxel links."""
-    from skelmorph.build import voxel_links
+    from skelmorph.voxels import voxel_links
     sk = sm.skeletonize(mask, spacing)
     c = np.argwhere(sk)
     links = voxel_links(c, sk.shape)

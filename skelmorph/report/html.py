@@ -1,14 +1,16 @@
-"""The study report: one self-contained HTML page with figures beside it.
+"""The study report: one self-contained HTML page.
 
 The page has no scripts and no outside resources: plain HTML with an inline
-style sheet, figures as PNG files in ``figures/`` referenced by relative
-paths.  It reads top to bottom: headline findings, the caution, the study,
-the figures, a gallery of samples, and the methods.
+style sheet and its figures embedded as PNG data URIs (they are also kept in
+``figures/`` beside it).  It reads top to bottom: headline findings, the
+caution, the study, the figures, a gallery of samples, and the methods.
+This module assembles the page from what ``cohort compare`` saved; the HTML
+pieces are in :mod:`~skelmorph.report.blocks` and the sample pictures in
+:mod:`~skelmorph.report.thumbnails`.
 """
 
 from __future__ import annotations
 
-import html
 import json
 import platform
 from pathlib import Path
@@ -16,7 +18,12 @@ from pathlib import Path
 import numpy as np
 
 from .._version import __version__
-from ..io import atomic_path, write_json
+from ..io import atomic_path
+
+from .blocks import _STYLE, _esc, _fmt, _img, _num, _table, embed_images
+from .thumbnails import _graph_file
+from .thumbnails import gallery as _gallery
+from .thumbnails import render_thumbnail
 
 __all__ = ["write_report", "write_sample_report", "render_thumbnail", "REFERENCES"]
 
@@ -56,203 +63,6 @@ REFERENCES = [
     "JMLR 11:1833-1863.",
 ]
 
-_STYLE = """
-body{font-family:Georgia,'Times New Roman',serif;max-width:60rem;margin:2rem auto;padding:0 1rem;
-color:#1b1b1b;line-height:1.5;background:#fdfdfb}
-h1{font-size:1.7rem;margin-bottom:.2rem}h2{font-size:1.25rem;border-bottom:1px solid #ccc;
-margin-top:2.2rem}h3{font-size:1.05rem}
-table{border-collapse:collapse;font-size:.85rem;margin:.5rem 0}
-td,th{border-bottom:1px solid #e2e2e2;padding:.2rem .6rem;text-align:left}
-th{background:#f1f1ec}
-.caution{border-left:4px solid #b35806;background:#fff6ec;padding:.6rem 1rem}
-.num{font-weight:bold}
-figure{margin:1rem 0}figcaption{font-size:.85rem;color:#444}
-.gallery{display:flex;flex-wrap:wrap;gap:.6rem}.gallery figure{width:16rem;margin:0}
-.gallery img{width:16rem;height:auto;border:1px solid #ddd}
-img.wide{max-width:100%;height:auto}
-.small{font-size:.85rem;color:#444}
-"""
-
-
-def _esc(x):
-    return html.escape(str(x))
-
-
-def _fmt(x, digits=3):
-    from ..results import format_value
-    if isinstance(x, (int, np.integer)):
-        return format_value(int(x), digits=max(digits, 15))
-    return _esc(format_value(x, digits))
-
-
-def _num(key, value, digits=3):
-    return f'<span class="num" data-key="{_esc(key)}">{_fmt(value, digits)}</span>'
-
-
-def embed_images(page, folder):
-    """Put every relative PNG the page shows into the page itself (data URIs),
-    so that the file works when copied or mailed alone; the PNGs stay in
-    ``figures/`` for other uses."""
-    import base64
-    import html
-    import re
-
-    def inline(match):
-        path = Path(folder) / html.unescape(match.group(3))
-        if not path.is_file():
-            return match.group(0)
-        data = base64.b64encode(path.read_bytes()).decode("ascii")
-        return f'{match.group(1)}"data:image/png;base64,{data}"'
-
-    return re.sub(r"""(<img src=)(["'])([^"':]+?\.png)\2""", inline, page)
-
-
-def _img(src, alt, caption, wide=True):
-    cls = ' class="wide"' if wide else ""
-    return (f'<figure><img src="{_esc(src)}" alt="{_esc(alt)}"{cls}>'
-            f"<figcaption>{caption}</figcaption></figure>")
-
-
-def _table(header, rows):
-    head = "".join(f"<th>{_esc(h)}</th>" for h in header)
-    body = "".join("<tr>" + "".join(f"<td>{c}</td>" for c in r) + "</tr>" for r in rows)
-    return f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
-
-
-_PYVISTA_OK = None
-_PROBE = """
-import pyvista as pv
-p = pv.Plotter(off_screen=True, window_size=(64, 64))
-p.add_mesh(pv.Sphere())
-p.screenshot(None, return_img=True)
-"""
-
-
-def _pyvista_works():
-    """Whether pyvista can render off-screen here, probed once in a child
-    process (a missing OpenGL stack can crash the renderer outright)."""
-    global _PYVISTA_OK
-    if _PYVISTA_OK is None:
-        import importlib.util
-        import subprocess
-        import sys
-        if importlib.util.find_spec("pyvista") is None:
-            _PYVISTA_OK = False
-        else:
-            try:
-                res = subprocess.run([sys.executable, "-c", _PROBE], capture_output=True,
-                                     timeout=60)
-                _PYVISTA_OK = res.returncode == 0
-            except (OSError, subprocess.TimeoutExpired):
-                _PYVISTA_OK = False
-    return _PYVISTA_OK
-
-
-def _render_pyvista(graph, path, px=300, clim=None):
-    """Off-screen 3D view of the centrelines as tubes coloured by radius (pyvista)."""
-    import pyvista as pv
-    import vtk
-    vtk.vtkObject.GlobalWarningDisplayOff()
-    if hasattr(vtk, "vtkLogger"):  # keep the renderer's display messages off the terminal
-        vtk.vtkLogger.SetStderrVerbosity(vtk.vtkLogger.VERBOSITY_OFF)
-    poly = graph.to_vtk()
-    u = graph.unit
-    lo, hi = clim or (float(graph.point_radius.min()), float(graph.point_radius.max()))
-    p = pv.Plotter(off_screen=True, window_size=(px, px))
-    p.set_background("white")
-    tube = poly.tube(radius=max(0.3 * float(np.median(graph.point_radius)), 1e-6))
-    p.add_mesh(tube, scalars="radius", cmap="cividis", clim=(lo, hi if hi > lo else lo + 1),
-               scalar_bar_args={"title": f"radius ({u})", "color": "black", "vertical": False,
-                                "position_x": 0.2, "position_y": 0.03, "width": 0.6,
-                                "height": 0.08, "title_font_size": 16, "label_font_size": 14,
-                                "n_labels": 2, "fmt": "%.2g"})
-    # The box size in words instead of axis ticks, which are unreadable at this size.
-    extent = " x ".join(f"{v:.3g}" for v in np.ptp(graph.points, axis=0)[::-1])
-    p.add_text(f"x y z extent: {extent} {u}", position="upper_left", font_size=9,
-               color="black")
-    p.camera_position = "iso"
-    path = Path(path)
-    with atomic_path(path) as tmp:
-        p.screenshot(str(tmp) + ".png")
-        Path(str(tmp) + ".png").replace(tmp)
-    p.close()
-    return lo, hi
-
-
-def render_thumbnail(graph, path, image=None, size=(4.0, 4.0), dpi=90, clim=None):
-    """A small picture of a skeleton graph coloured by radius.
-
-    3D: the centrelines as tubes rendered off-screen with pyvista when it
-    can render on this machine, else a matplotlib perspective view; 2D: the
-    graph drawn over the image.  ``clim`` fixes the colour scale (one per
-    study); by default it is the graph's radius range.  Returns the
-    (min, max) of the colour scale.
-    """
-    if graph.ndim == 3 and graph.n_edges and _pyvista_works():
-        try:
-            return _render_pyvista(graph, path, px=int(size[0] * dpi), clim=clim)
-        except Exception:  # fall back to matplotlib below
-            pass
-    import matplotlib
-    matplotlib.use("Agg", force=False)
-    import matplotlib.pyplot as plt
-    from matplotlib.collections import LineCollection
-
-    from .figures import save
-    pts, off, r = graph.points, graph.offsets, graph.point_radius
-    segs, vals = [], []
-    for e in range(graph.n_edges):
-        p = pts[off[e]:off[e + 1]]
-        q = r[off[e]:off[e + 1]]
-        segs.extend(np.stack([p[:-1], p[1:]], axis=1))
-        vals.extend(0.5 * (q[:-1] + q[1:]))
-    segs = np.array(segs).reshape(-1, 2, graph.ndim)
-    vals = np.array(vals)
-    r_all = graph.point_radius
-    lo, hi = clim or ((float(r_all.min()), float(r_all.max())) if len(r_all) else (0.0, 1.0))
-    u = graph.unit
-    if graph.ndim == 3:
-        from mpl_toolkits.mplot3d.art3d import Line3DCollection
-        fig = plt.figure(figsize=size)
-        ax = fig.add_subplot(projection="3d")
-        lc = Line3DCollection(segs[:, :, ::-1], cmap="cividis", linewidths=1.0)
-        lc.set_array(vals)
-        lc.set_clim(lo, hi if hi > lo else lo + 1)
-        ax.add_collection(lc)
-        if len(segs):
-            for k, setter in enumerate((ax.set_xlim, ax.set_ylim, ax.set_zlim)):
-                c = segs[:, :, 2 - k]
-                setter(float(c.min()), float(c.max()) + 1e-9)
-        ax.set_xlabel(f"x ({u})", fontsize=7)
-        ax.set_ylabel(f"y ({u})", fontsize=7)
-        ax.set_zlabel(f"z ({u})", fontsize=7)
-        ax.tick_params(labelsize=6)
-        for axis in (ax.xaxis, ax.yaxis, ax.zaxis):
-            axis.set_major_locator(matplotlib.ticker.MaxNLocator(3))
-    else:
-        fig, ax = plt.subplots(figsize=size)
-        if image is not None:
-            sy, sx = graph.spacing
-            ax.imshow(np.asarray(image), cmap="gray", origin="upper",
-                      extent=(-sx / 2, (image.shape[1] - 0.5) * sx, (image.shape[0] - 0.5) * sy,
-                              -sy / 2))
-        lc = LineCollection(segs[:, :, ::-1], cmap="cividis", linewidths=1.2)
-        lc.set_array(vals)
-        lc.set_clim(lo, hi if hi > lo else lo + 1)
-        ax.add_collection(lc)
-        ax.autoscale()
-        ax.set_aspect("equal")
-        if image is None:
-            ax.invert_yaxis()
-        ax.set_xlabel(f"x ({u})", fontsize=7)
-        ax.set_ylabel(f"y ({u})", fontsize=7)
-        ax.tick_params(labelsize=6)
-    cb = fig.colorbar(lc, ax=ax, shrink=0.6)
-    cb.set_label(f"radius ({u})", fontsize=7)
-    cb.ax.tick_params(labelsize=6)
-    save(fig, path, dpi=dpi)
-    return lo, hi
-
 
 def _versions():
     import importlib.metadata as md
@@ -264,52 +74,6 @@ def _versions():
         except md.PackageNotFoundError:
             pass
     return out
-
-
-def _gallery(study, cohort, labels, folder, max_gallery):
-    """Thumbnails of up to ``max_gallery`` samples, spread over the groups."""
-    from ..graph import SkeletonGraph
-    folder.mkdir(parents=True, exist_ok=True)
-    picked = []
-    groups = sorted(set(labels))
-    per = max(1, max_gallery // max(len(groups), 1))
-    for g in groups:
-        picked += [i for i in np.flatnonzero(labels == g)[:per]]
-    graphs = {}
-    for i in picked:
-        try:
-            graphs[i] = SkeletonGraph.read(_graph_file(study / "samples" / cohort["sample"].iloc[i]))
-        except Exception:  # a sample without a readable graph gets no picture
-            continue
-    radii = [g.point_radius for g in graphs.values() if len(g.point_radius)]
-    # One colour scale for the study: the 1st-99th percentile of all radii shown.
-    clim = (tuple(float(v) for v in np.percentile(np.concatenate(radii), [1, 99]))
-            if radii else None)
-    scale_file = folder / "colour-scale.json"
-    same_scale = scale_file.exists() and json.loads(scale_file.read_text()) == list(clim or [])
-    items = []
-    for i, graph in graphs.items():
-        s = cohort["sample"].iloc[i]
-        thumb = folder / f"{s}.png"
-        if not (thumb.exists() and same_scale):
-            image = None
-            if graph.ndim == 2:
-                try:
-                    from ..io import read_image
-                    image = np.asarray(read_image(cohort["path"].iloc[i]).array)
-                except Exception:
-                    image = None
-            render_thumbnail(graph, thumb, image=image, clim=clim)
-        items.append((s, labels[i], f"figures/gallery/{s}.png"))
-    write_json(scale_file, list(clim or []))
-    return items
-
-
-def _graph_file(folder):
-    for name in ("graph.npz", "graph.json"):
-        if (folder / name).exists():
-            return folder / name
-    raise FileNotFoundError(folder)
 
 
 def write_report(study, out=None, max_gallery=24, max_rows=200):

@@ -1,0 +1,277 @@
+"""The raw graph of a skeleton: junction clusters become nodes, chains of
+path voxels become branch polylines with radii (:class:`Work` holds it,
+editable, for the clean-up passes of :mod:`skelmorph.cleanup`)."""
+
+from __future__ import annotations
+
+import time
+from contextlib import contextmanager
+
+import numpy as np
+from scipy import ndimage as ndi
+from scipy import sparse
+from scipy.sparse import csgraph
+
+from ._kernels import branch_voxel_paths, walk_paths
+from .polyline import polyline_lengths
+
+from .centreline_radius import centreline_radius
+from .voxels import euler_characteristic, small_cycle_voxels, voxel_links
+
+
+@contextmanager
+def _timed(timings, name):
+    t0 = time.perf_counter()
+    yield
+    if timings is not None:
+        timings[name] = timings.get(name, 0.0) + time.perf_counter() - t0
+
+
+def _restore_vanished(mask, skel):
+    """Give every mask component that thinning erased one centreline voxel.
+
+    scikit-image's 3D thinning can delete a whole component (e.g. a box with
+    an even cross-section); a centre voxel keeps the component in the graph.
+    """
+    structure = ndi.generate_binary_structure(mask.ndim, mask.ndim)
+    labels, n = ndi.label(mask, structure=structure)
+    if n == 0:
+        return skel
+    has = np.zeros(n + 1, bool)
+    has[labels[skel]] = True
+    missing = np.flatnonzero(~has[1:]) + 1
+    if len(missing) == 0:
+        return skel
+    skel = skel.copy()
+    slices = ndi.find_objects(labels)
+    for lab in missing:  # only the vanished components
+        sl = slices[lab - 1]
+        crop = labels[sl] == lab
+        dist = ndi.distance_transform_edt(np.pad(crop, 1))[(slice(1, -1),) * mask.ndim]
+        idx = np.unravel_index(np.argmax(dist), crop.shape)
+        skel[tuple(s.start + i for s, i in zip(sl, idx))] = True
+    return skel
+
+
+class _Work:
+    """Editable graph during clean-up: node arrays + per-edge point lists."""
+
+    def __init__(self, node_pos, node_r, protected, u, v, pts, rad, shape, spacing):
+        self.node_pos = node_pos
+        self.node_r = node_r
+        self.protected = protected  # isolated points: kept even with degree 0
+        self.u = list(u)
+        self.v = list(v)
+        self.pts = pts
+        self.rad = rad
+        self.shape = shape  # image shape and spacing, for border tests
+        self.spacing = spacing
+
+    def keep_edges(self, keep):
+        """Keep only the edges with indices ``keep`` (in that order)."""
+        self.u = [self.u[e] for e in keep]
+        self.v = [self.v[e] for e in keep]
+        self.pts = [self.pts[e] for e in keep]
+        self.rad = [self.rad[e] for e in keep]
+
+    def near_border(self, nodes):
+        """True for nodes within their radius (+1.5 voxels) of an image face."""
+        sp = np.asarray(self.spacing)
+        pos = self.node_pos[nodes]
+        gap = np.minimum(pos + 0.5 * sp, (np.asarray(self.shape) - 0.5) * sp - pos).min(axis=1)
+        return gap <= self.node_r[nodes] + 1.5 * sp.max()
+
+    def degree(self):
+        deg = np.zeros(len(self.node_pos), np.int64)
+        np.add.at(deg, np.asarray(self.u, np.int64), 1)
+        np.add.at(deg, np.asarray(self.v, np.int64), 1)
+        return deg
+
+    def raw_lengths(self):
+        if not self.pts:
+            return np.zeros(0)
+        counts = np.fromiter((len(p) for p in self.pts), np.int64, len(self.pts))
+        offsets = np.concatenate([[0], np.cumsum(counts)])
+        return polyline_lengths(np.concatenate(self.pts), offsets)
+
+
+def _raw_graph(skel, mask, spacing, radius_method, timings, dist_sq=None):
+    """Nodes and point-ordered edges straight from the centreline voxels."""
+    sp = np.asarray(spacing, float)
+    with _timed(timings, "graph"):
+        coords = np.argwhere(skel)
+        n = len(coords)
+        links = voxel_links(coords, skel.shape)
+        deg = np.bincount(links.ravel(), minlength=n)
+    with _timed(timings, "radii"):
+        if dist_sq is not None:
+            vox_r = np.sqrt(dist_sq[tuple(coords.T)].astype(np.float64))
+        else:
+            vox_r = centreline_radius(mask, coords, spacing, method=radius_method)
+    with _timed(timings, "graph"):
+        clique = small_cycle_voxels(coords, links, skel.shape)
+        is_node = (deg != 2) | clique
+        # Rings without any junction: promote one voxel per ring to an anchor node.
+        path_links = links[~is_node[links[:, 0]] & ~is_node[links[:, 1]]]
+        ncomp, lab = _components(n, path_links)
+        slab_deg = np.bincount(path_links.ravel(), minlength=n)
+        touches = np.zeros(ncomp, bool)
+        touches[lab[~is_node & (slab_deg < 2)]] = True
+        touches[lab[is_node]] = True
+        ring_comps = np.flatnonzero(~touches)
+        if len(ring_comps):
+            anchor_of = np.full(ncomp, -1)
+            cand = np.flatnonzero(np.isin(lab, ring_comps))
+            first = np.unique(lab[cand], return_index=True)[1]
+            anchor_of[lab[cand[first]]] = cand[first]
+            is_node = is_node.copy()
+            is_node[anchor_of[ring_comps]] = True
+            path_links = links[~is_node[links[:, 0]] & ~is_node[links[:, 1]]]
+            slab_deg = np.bincount(path_links.ravel(), minlength=n)
+
+        # Node ids: touching junction voxels (degree >= 3) form one node.
+        junction = (deg >= 3) | clique
+        jlinks = links[junction[links[:, 0]] & junction[links[:, 1]]]
+        _, jlab = _components(n, jlinks)
+        node_vox = np.flatnonzero(is_node)
+        key = np.where(junction[node_vox], jlab[node_vox], n + node_vox)  # others stand alone
+        uniq, node_id_of = np.unique(key, return_inverse=True)
+        node_of_voxel = np.full(n, -1)
+        node_of_voxel[node_vox] = node_id_of
+        n_nodes = len(uniq)
+        pos_vox = coords * sp
+        # A node sits on the voxel of its cluster nearest the cluster's centroid;
+        # branch ends reach it through the cluster's voxels (no straight jumps).
+        centroid = np.zeros((n_nodes, coords.shape[1]))
+        np.add.at(centroid, node_id_of, pos_vox[node_vox])
+        centroid /= np.bincount(node_id_of, minlength=n_nodes)[:, None]
+        gap = ((pos_vox[node_vox] - centroid[node_id_of]) ** 2).sum(axis=1)
+        pick = np.lexsort((node_vox, gap, node_id_of))
+        first_of = np.unique(node_id_of[pick], return_index=True)[1]
+        centre_vox = node_vox[pick[first_of]]
+        node_pos = pos_vox[centre_vox].copy()
+        pred = _cluster_predecessors(n, jlinks, centre_vox[junction[centre_vox]], pos_vox)
+        node_r = np.zeros(n_nodes)
+        np.maximum.at(node_r, node_id_of, vox_r[node_vox])
+        protected = np.zeros(n_nodes, bool)
+        protected[node_of_voxel[node_vox[deg[node_vox] == 0]]] = True
+        loops_u, loops_pts, loops_rad = _cluster_tunnels(
+            coords, junction, node_of_voxel, links, pos_vox, vox_r, node_pos, node_r, skel.shape)
+
+        # Path voxels: order every branch with one depth-first traversal.
+        slab = np.flatnonzero(~is_node)
+        u_list, v_list, pts_list, rad_list = [], [], [], []
+        if len(slab):
+            ncomp, lab = _components(n, path_links)
+            ends = slab[slab_deg[slab] < 2]
+            _, first = np.unique(lab[ends], return_index=True)
+            starts = np.sort(ends[first])
+            both = np.concatenate([path_links, path_links[:, ::-1]])
+            both = both[np.lexsort((both[:, 1], both[:, 0]))]
+            link_start = np.searchsorted(both[:, 0], np.arange(n + 1))
+            order = walk_paths(n, link_start, both[:, 1], starts)
+            olab = lab[order]
+            cut = np.flatnonzero(np.diff(olab)) + 1
+            bounds = np.concatenate([[0], cut, [len(order)]])
+            # Node neighbours of each path voxel (first and last, in link order).
+            nl = links[is_node[links[:, 0]] != is_node[links[:, 1]]]
+            sv = np.where(is_node[nl[:, 0]], nl[:, 1], nl[:, 0])
+            nv = np.where(is_node[nl[:, 0]], nl[:, 0], nl[:, 1])
+            srt = np.argsort(sv, kind="stable")
+            sv, nv = sv[srt], nv[srt]
+            uv, idx, cnt = np.unique(sv, return_index=True, return_counts=True)
+            first_att = np.full(n, -1)
+            last_att = np.full(n, -1)
+            s_vox, e_vox = order[bounds[:-1]], order[bounds[1:] - 1]
+            first_att[uv] = nv[idx]
+            last_att[uv] = nv[idx + cnt - 1]
+            fa, la = first_att[s_vox], last_att[e_vox]
+        else:
+            order, bounds = np.zeros(0, np.int64), np.zeros(1, np.int64)
+            fa = la = np.zeros(0, np.int64)
+        # Direct node-node links (e.g. a one-voxel spur on a junction): a
+        # branch without path voxels, one per pair of nodes.
+        nn = links[is_node[links[:, 0]] & is_node[links[:, 1]]]
+        a, b = node_of_voxel[nn[:, 0]], node_of_voxel[nn[:, 1]]
+        diff = np.flatnonzero(a != b)
+        if len(diff):
+            key_pairs = np.sort(np.column_stack([a[diff], b[diff]]), axis=1)
+            _, one = np.unique(key_pairs, axis=0, return_index=True)
+            pick = diff[np.sort(one)]
+            fa = np.concatenate([fa, nn[pick, 0]])
+            la = np.concatenate([la, nn[pick, 1]])
+            bounds = np.concatenate([bounds, np.full(len(pick), bounds[-1])])
+        if len(fa):
+            vox_idx, offs = branch_voxel_paths(order, bounds, fa, la, pred)
+            eu, ev = node_of_voxel[fa], node_of_voxel[la]
+            flat = pos_vox[vox_idx]
+            flat_r = vox_r[vox_idx]
+            flat_r[offs[:-1]], flat_r[offs[1:] - 1] = node_r[eu], node_r[ev]
+            pts_list = [flat[a:b] for a, b in zip(offs[:-1].tolist(), offs[1:].tolist())]
+            rad_list = [flat_r[a:b] for a, b in zip(offs[:-1].tolist(), offs[1:].tolist())]
+            u_list, v_list = list(eu), list(ev)
+        u_list, v_list = list(u_list) + loops_u, list(v_list) + loops_u
+        pts_list, rad_list = list(pts_list) + loops_pts, list(rad_list) + loops_rad
+    return _Work(node_pos, node_r, protected, u_list, v_list, pts_list, rad_list,
+                 skel.shape, spacing)
+
+
+def _cluster_predecessors(n, jlinks, sources, pos_vox):
+    """Shortest-path predecessors inside junction clusters, towards each
+    cluster's node voxel (``sources``); -1 at node voxels and elsewhere."""
+    pred = np.full(n, -1, np.int64)
+    if len(jlinks) == 0 or len(sources) == 0:
+        return pred
+    w = np.linalg.norm(pos_vox[jlinks[:, 0]] - pos_vox[jlinks[:, 1]], axis=1)
+    g = sparse.coo_matrix((w, (jlinks[:, 0], jlinks[:, 1])), shape=(n, n)).tocsr()
+    _, p, _ = csgraph.dijkstra(g, directed=False, indices=sources, min_only=True,
+                            return_predecessors=True)
+    return np.where(p >= 0, p, -1).astype(np.int64)
+
+
+def _cluster_tunnels(coords, junction, node_of_voxel, links, pos_vox, vox_r, node_pos, node_r,
+                     shape):
+    """Loops that lie wholly inside a junction cluster, as self-loops of its node.
+
+    A cluster becomes one node, which would silently drop any tunnel the
+    cluster's voxels enclose (thick junctions can thin to a tiny ring whose
+    voxels all have branches).  A connected cluster without cavities has
+    1 - chi tunnels; each is kept as a self-loop traced through the cluster
+    along one of its longest cycles (the short ones are the filled 2x2x2
+    cycles that enclose nothing).
+    """
+    jvox = np.flatnonzero(junction)
+    empty = ([], [], [])
+    if len(jvox) < 4:
+        return empty
+    node = node_of_voxel[jvox]
+    sizes = np.bincount(node)
+    big = sizes[node] >= 4  # a tunnel needs at least four voxels
+    if not big.any():
+        return empty
+    chi = euler_characteristic(coords[jvox[big]], shape, labels=node[big])
+    tunnels = np.flatnonzero((1 - chi) * (sizes[: len(chi)] >= 4) > 0)
+    if len(tunnels) == 0:
+        return empty
+    import networkx as nx
+
+    same = junction[links[:, 0]] & junction[links[:, 1]]
+    jl = links[same]
+    jl_node = node_of_voxel[jl[:, 0]]
+    loops_u, loops_pts, loops_rad = [], [], []
+    for nd in tunnels:  # rare: clusters that enclose a tunnel
+        g = nx.Graph()
+        g.add_edges_from(map(tuple, jl[jl_node == nd].tolist()))
+        cycles = sorted(nx.cycle_basis(g), key=len, reverse=True)
+        for cycle in cycles[: int(1 - chi[nd])]:
+            loops_u.append(int(nd))
+            loops_pts.append(np.vstack([node_pos[nd], pos_vox[cycle], node_pos[nd]]))
+            loops_rad.append(np.concatenate([[node_r[nd]], vox_r[cycle], [node_r[nd]]]))
+    return loops_u, loops_pts, loops_rad
+
+
+def _components(n, links):
+    if len(links) == 0:
+        return n, np.arange(n)
+    g = sparse.coo_matrix((np.ones(len(links)), (links[:, 0], links[:, 1])), shape=(n, n))
+    return csgraph.connected_components(g, directed=False)
