@@ -60,11 +60,27 @@ def test_page_is_self_contained(study):
     assert "Failed samples" in text and "intact2" in text
 
 
+def _read_number(text):
+    """A number as the page writes it for people: '10,190', '4.6 × 10⁻⁴'."""
+    sup = str.maketrans("⁻⁰¹²³⁴⁵⁶⁷⁸⁹", "-0123456789")
+    text = text.replace(",", "")
+    if " × 10" in text:
+        mantissa, exponent = text.split(" × 10")
+        return float(mantissa) * 10.0 ** int(exponent.translate(sup))
+    return float(text)
+
+
+def test_number_formatting_reads_back():
+    from skelmorph.results import format_value
+    for x in (0.000462, 10190.45, 3.5e7, -0.25, 12.0, 0.0099):
+        assert _read_number(format_value(x)) == pytest.approx(x, rel=5e-3)
+
+
 def test_headline_numbers_equal_comparison(study):
     folder, page = study
     comp = json.loads((folder / "comparison.json").read_text())
     text = page.read_text()
-    shown = dict(re.findall(r'data-key="([^"]+)">([^<]+)<', text))
+    shown = {k: _read_number(v) for k, v in re.findall(r'data-key="([^"]+)">([^<]+)<', text)}
     for key in ("cv_accuracy", "cv_accuracy_sd", "permutation_p", "cv_accuracy_baseline"):
         assert float(shown[key]) == pytest.approx(comp[key], rel=5e-3, abs=1e-9)  # 3 digits shown
     for name, w in comp["weights"].items():

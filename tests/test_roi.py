@@ -2,7 +2,7 @@
 
 References named beside each check: analytic values of plate stacks and rod
 lattices (methods dossier 5.6-5.7), Odgaard & Gundersen's (1993) box
-correction as implemented and checked in test_field_measures, scikit-image's
+correction as implemented and checked in test_measure, scikit-image's
 retina photograph (skimage.data.retina, CC0 per its docstring) with a
 reference vessel mask from scikit-image's own filters, and pyvista's frog
 tissue label map (pyvista example data).
@@ -18,7 +18,7 @@ from skelmorph.io import write_tiff
 from skelmorph.measure.volume import bone_measures, edge_corrected_euler, euler_in_region
 from skelmorph.roi import field_of_view, filled_outline
 
-from test_field_measures import square_rod_lattice
+from conftest import square_rod_lattice
 
 BONE = ("BV/TV", "BS/BV", "Tb.Th", "Tb.Sp", "Tb.N", "Conn.D", "SMI", "DA", "BS", "TV")
 

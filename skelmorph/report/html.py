@@ -331,8 +331,12 @@ def write_sample_report(folder, result=None):
     image = result.mask if (result is not None and graph.ndim == 2) else None
     render_thumbnail(graph, figdir / "graph.png", image=image, size=(5, 5), dpi=90)
     u = summary.get("unit", "")
+    from ..results import describe
+    units = summary.get("units", {})
     keys = [k for k, v in summary.items() if isinstance(v, (int, float)) and not isinstance(v, bool)]
-    rows = [[_esc(k), _num(k, summary[k], 4)] for k in keys]
+    rows = [[_esc(k), _num(k, summary[k], 4),
+             _esc(units.get(k, "") if units.get(k) != "1" else ""), _esc(describe(k))]
+            for k in keys]
     parts = [f"<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'><title>skelmorph "
              f"sample report</title><style>{_STYLE}</style></head><body>",
              f"<h1>Sample report</h1><p class='small'>{_esc(summary.get('source') or '')}; "
@@ -341,7 +345,7 @@ def write_sample_report(folder, result=None):
              _warnings_block(summary.get("warnings") or []),
              "<h2>The network</h2>", _img("figures/graph.png", "centreline graph",
                                           f"Centrelines coloured by radius ({_esc(u)})."),
-             "<h2>Measures</h2>", _table(["measure", "value"], rows),
+             "<h2>Measures</h2>", _table(["measure", "value", "unit", "what it is"], rows),
              _provenance_block(summary)]
     for name, cap in (("barcode.png", "Elder-rule barcode and persistence diagram."),
                       ("profiles.png", "Radial profiles around the root.")):

@@ -18,22 +18,12 @@ from skelmorph.measure.volume import (bone_measures, edge_corrected_euler, mil_f
                                       surface_and_smi)
 from skelmorph.phantoms import _polyline_tube
 
+from conftest import square_rod_lattice  # noqa: E402  (shared shape)
+
 
 def ball(shape, centre, radius):
     grid = np.indices(shape).astype(float)
     return sum((g - c) ** 2 for g, c in zip(grid, centre)) < radius ** 2
-
-
-def square_rod_lattice(n, a, d):
-    """n^3 cells of period a with square rods of side d through the cell
-    centres, cut by the box faces (methods dossier 5.6)."""
-    size = n * a
-    line = np.zeros(size, bool)
-    for i in range(n):
-        c = i * a + a // 2
-        line[c - d // 2:c - d // 2 + d] = True
-    z, y, x = np.meshgrid(line, line, line, indexing="ij")
-    return (y & x) | (z & x) | (z & y)
 
 
 # ------------------------------------------------------------------- bone
