@@ -18,7 +18,7 @@ from skelmorph.measure.volume import (bone_measures, edge_corrected_euler, mil_f
                                       surface_and_smi)
 from skelmorph.phantoms import _polyline_tube
 
-from conftest import square_rod_lattice  # noqa: E402  (shared shape)
+from conftest import square_rod_lattice
 
 
 def ball(shape, centre, radius):
