@@ -411,3 +411,36 @@ def cyclic_block_voxels(base, links, bshape):
             if count[k] >= 3 and lcount[k] >= count[k]:
                 flagged[i] = True
     return flagged
+
+
+@njit(cache=True)
+def merged_signed_l1(pa, wa, pb, wb):
+    """Mean over rows of the integral of |F_a - F_b|, where F_a (F_b) is the
+    running sum of weights wa (wb) at the sorted positions pa (pb) of the
+    row: one linear merge of the two sorted runs per row."""
+    rows = pa.shape[0]
+    na, nb = pa.shape[1], pb.shape[1]
+    total = 0.0
+    for r in range(rows):
+        i = 0
+        j = 0
+        f = 0.0
+        x_prev = 0.0
+        first = True
+        acc = 0.0
+        while i < na or j < nb:
+            if j >= nb or (i < na and pa[r, i] <= pb[r, j]):
+                x = pa[r, i]
+                step = wa[r, i]
+                i += 1
+            else:
+                x = pb[r, j]
+                step = -wb[r, j]
+                j += 1
+            if not first:
+                acc += abs(f) * (x - x_prev)
+            first = False
+            f += step
+            x_prev = x
+        total += acc
+    return total / rows if rows else 0.0
