@@ -312,3 +312,23 @@ def test_design_notes_for_small_groups():
     notes = design_notes([1, 5], 0.05)
     assert any("fewer than 3" in n for n in notes) and any("0.333" in n for n in notes)
     assert design_notes([8, 8], 0.05) == []
+
+
+def test_degenerate_groups_warn_and_report_nan(tmp_path):
+    """A group of one sample: the comparison finishes, warns about the design,
+    and reports NaN (not -inf) where an index cannot be computed."""
+    import pandas as pd
+    rng = np.random.default_rng(0)
+    n = 6
+    pd.DataFrame({"sample": [f"s{i}" for i in range(n)], "group": ["a"] + ["b"] * (n - 1),
+                  "path": "x.tif", "spacing": "1 1 1", "unit": "um", "ndim": 3,
+                  "total_length": rng.gamma(5, 100, n), "mean_radius": rng.gamma(4, 1, n),
+                  "cycle_rank": rng.poisson(30, n)}).to_csv(tmp_path / "cohort.csv", index=False)
+    with pytest.warns(UserWarning, match="fewer than 3 samples"):
+        res = compare_cohort(tmp_path, n_repeats=2, n_permutations=5, figures=False)
+    assert any("smallest attainable p-value" in note for note in res["notes"])
+    assert np.isnan(res["cv_accuracy"])
+    assert not np.isneginf(res["separation_index"]["value"])
+    saved = json.loads((tmp_path / "comparison.json").read_text())
+    assert saved["notes"] == res["notes"]
+    assert (tmp_path / "measures.csv").read_text().splitlines()[0].startswith("measure,unit,")

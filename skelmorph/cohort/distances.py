@@ -187,7 +187,7 @@ def learn_weights(distances, labels, max_points=2000):
     scores = np.array([score(w) for w in lattice])
     scores = np.where(np.isfinite(scores), scores, -np.inf)
     best = lattice[int(np.argmax(scores))]
-    best_score = float(scores.max())
+    best_score = float(scores.max()) if np.isfinite(scores.max()) else float("nan")
     if len(names) > 1 and np.isfinite(best_score):
         res = minimize(lambda w: -score(w), best, method="SLSQP", bounds=[(0, 1)] * len(names),
                        constraints=[{"type": "eq", "fun": lambda w: w.sum() - 1}],
