@@ -146,6 +146,17 @@ def choose_root(graph, method="thickest", *, point=None, face=None, components="
     single published standard fixes the root of a cyclic network; these rules
     follow common practice (inlet for vessels, base for leaves; several roots
     for bone, see :func:`spanning_trees`).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from skelmorph import skeleton_graph
+    >>> mask = np.zeros((5, 40, 40), bool)
+    >>> mask[2, 20, 5:35] = True
+    >>> mask[2, 5:20, 20] = True
+    >>> g = skeleton_graph(mask, spacing=(1.0, 1.0, 1.0))
+    >>> int(g.node_degree[choose_root(g, "centroid")])   # the junction of the T
+    3
     """
     if graph.n_nodes == 0:
         raise InputError("the graph has no nodes; nothing to root")

@@ -80,6 +80,17 @@ def barcode(tree, filtration="radial", axis=None, return_leaves=False):
     Kanari et al. (2018), Neuroinformatics 16:3, the topological morphology
     descriptor; the elder rule of persistent homology (Edelsbrunner & Harer
     2010).
+
+    Examples
+    --------
+    A root at the origin, a stem to (3, 0) and two tips: the farther tip's
+    bar runs from its distance to 0 (the root), the nearer one's ends at
+    the fork, 3 from the root.
+
+    >>> from skelmorph import Tree
+    >>> t = Tree.from_parents([-1, 0, 1, 1], [[0, 0], [3, 0], [5, 2], [7, -1]])
+    >>> barcode(t, "radial").round(2).tolist()
+    [[7.07, 0.0], [5.39, 3.0]]
     """
     if not isinstance(tree, Tree):
         raise InputError("barcode needs a Tree (see Tree.from_parents or spanning_trees)")

@@ -27,6 +27,13 @@ def strahler_order(tree):
     -------
     dict of arrays
         The branches of :meth:`Tree.branches` plus ``order``.
+
+    Examples
+    --------
+    >>> from skelmorph import Tree
+    >>> t = Tree.from_parents([-1, 0, 1, 1], [[0, 0], [3, 0], [5, 2], [7, -1]])
+    >>> strahler_order(t)["order"].tolist()      # the stem, then the two tips
+    [2, 1, 1]
     """
     from .._kernels import strahler_orders
     point_order = strahler_orders(tree.order, tree.parent)
