@@ -191,12 +191,8 @@ def mil_fabric(mask, spacing, roi=None):
     return float(axes[0] / axes[-1]), axes
 
 
-def _outward_normals(volume, verts, normals, spacing):
-    """Unit vertex normals turned to point out of the solid (checked by sampling)."""
-    n = normals / np.maximum(np.linalg.norm(normals, axis=1, keepdims=True), 1e-12)
-    probe = (verts + 0.5 * min(spacing) * n) / np.asarray(spacing)
-    inside = ndi.map_coordinates(volume, probe.T, order=1, mode="nearest")
-    return n if inside.mean() < 0.5 else -n
+def _unit_normals(normals):
+    return normals / np.maximum(np.linalg.norm(normals, axis=1, keepdims=True), 1e-12)
 
 
 def _inside_faces(verts, faces, spacing, roi):
@@ -208,7 +204,29 @@ def _inside_faces(verts, faces, spacing, roi):
     return faces[share > 1 - 1e-4]
 
 
-def surface_and_smi(mask, spacing, bv=None, sigma=1.0, roi=None):
+#: Cube layers per slab of the surface mesh: about 2^22 voxels of core,
+#: so that the mesh (some 100 bytes per voxel of a foam) never exists for
+#: the whole volume at once: at most about 0.5 GB, whatever the volume.
+SLAB_VOXELS = 2 ** 22
+
+
+def _slabs(nz, plane, halo, slab_voxels=None):
+    """Slabs of cube layers along axis 0: (first layer, end layer, lo, hi),
+    the volume planes lo:hi holding the layers plus ``halo`` planes each side."""
+    layers = max(8, int(np.ceil((slab_voxels or SLAB_VOXELS) / max(plane, 1))))
+    for z0 in range(0, max(nz - 1, 0), layers):
+        z1 = min(z0 + layers, nz - 1)
+        yield z0, z1, max(0, z0 - halo), min(nz, z1 + 1 + halo)
+
+
+def _own_faces(verts, faces, spacing, z0, z1, lo):
+    """Faces of the slab's own cube layers [z0, z1) (by centre), so that
+    slabs sharing halo planes never count a triangle twice."""
+    cz = np.floor(verts[faces, 0].mean(axis=1) / spacing[0]) + lo
+    return faces[(cz >= z0) & (cz < z1)]
+
+
+def surface_and_smi(mask, spacing, bv=None, sigma=1.0, roi=None, slab_voxels=None):
     """Bone surface (marching-cubes mesh) and the structure model index.
 
     BS is the area of the isosurface at 0.5 of the binary image
@@ -223,6 +241,12 @@ def surface_and_smi(mask, spacing, bv=None, sigma=1.0, roi=None):
     faces less than a voxel from the region's edge are left out (they are
     where the region cuts the structure).
 
+    The meshes are built slab by slab along axis 0 (about ``slab_voxels``
+    voxels each, halos as deep as the smoothing kernel plus two planes) and
+    each slab keeps the triangles of its own cube layers: areas add up, so
+    the result equals one mesh of the whole volume (tested) while memory
+    stays that of one slab.
+
     Returns
     -------
     bs : float
@@ -231,23 +255,48 @@ def surface_and_smi(mask, spacing, bv=None, sigma=1.0, roi=None):
     from skimage.measure import marching_cubes, mesh_surface_area
     m = _check_3d(mask)
     spacing = tuple(float(s) for s in spacing)
+    sp = np.asarray(spacing)
     if not m.any() or m.all():
         return 0.0, float("nan")
-    verts, faces, _, _ = marching_cubes(m.astype(np.float32), level=0.5, spacing=spacing,
-                                        allow_degenerate=False)
-    bs = float(mesh_surface_area(verts, _inside_faces(verts, faces, spacing, roi)))
     if bv is None:
-        bv = float(m.sum()) * float(np.prod(spacing))
-    smooth = ndi.gaussian_filter(m.astype(np.float32), sigma) if sigma else m.astype(np.float32)
-    verts, faces, normals, _ = marching_cubes(smooth, level=0.5, spacing=spacing,
-                                              allow_degenerate=False)
-    faces = _inside_faces(verts, faces, spacing, roi)
-    s = mesh_surface_area(verts, faces)
-    outward = _outward_normals(smooth, verts, normals, spacing)
+        bv = float(np.count_nonzero(m)) * float(np.prod(spacing))
+    halo = (int(4.0 * sigma + 0.5) if sigma else 0) + 2
     eps = 0.01 * min(spacing)
-    grow = mesh_surface_area(verts + eps * outward, faces)
-    shrink = mesh_surface_area(verts - eps * outward, faces)
-    dsdr = (grow - shrink) / (2 * eps)
+    bs = s = grow = shrink = 0.0
+    votes = [0.0, 0]
+    plane = m.shape[1] * m.shape[2]
+    for z0, z1, lo, hi in _slabs(m.shape[0], plane, halo, slab_voxels):
+        part = m[lo:hi].astype(np.float32)
+        sub_roi = None if roi is None else roi[lo:hi]
+        if part.min() == part.max():
+            continue  # no surface crosses this slab
+        verts, faces, _, _ = marching_cubes(part, level=0.5, spacing=spacing,
+                                            allow_degenerate=False)
+        faces = _own_faces(verts, _inside_faces(verts, faces, spacing, sub_roi), sp, z0, z1, lo)
+        bs += float(mesh_surface_area(verts.astype(np.float64), faces))
+        if sigma:
+            # Smooth with the true volume edges where the slab has them.
+            part = ndi.gaussian_filter(part, sigma)
+        if part.min() >= 0.5 or part.max() <= 0.5:
+            continue
+        verts, faces, normals, _ = marching_cubes(part, level=0.5, spacing=spacing,
+                                                  allow_degenerate=False)
+        faces = _own_faces(verts, _inside_faces(verts, faces, spacing, sub_roi), sp, z0, z1, lo)
+        if not len(faces):
+            continue
+        # float64: dS/dr is a small difference of two large areas.
+        verts = verts.astype(np.float64)
+        s += float(mesh_surface_area(verts, faces))
+        n = _unit_normals(normals.astype(np.float64))
+        # Which way is out: sample the smoothed image half a voxel along n.
+        used = np.unique(faces)
+        probe = (verts[used] + 0.5 * min(spacing) * n[used]) / sp
+        votes[0] += float(ndi.map_coordinates(part, probe.T, order=1, mode="nearest").sum())
+        votes[1] += len(used)
+        grow += float(mesh_surface_area(verts + eps * n, faces))
+        shrink += float(mesh_surface_area(verts - eps * n, faces))
+    outward = 1.0 if votes[1] and votes[0] / votes[1] < 0.5 else -1.0
+    dsdr = outward * (grow - shrink) / (2 * eps)
     smi = 6.0 * bv * dsdr / (s * s) if s > 0 else float("nan")
     return bs, float(smi)
 
@@ -313,11 +362,19 @@ def bone_measures(mask, spacing, unit="um", thickness_maps=False, progress=None,
     # Distances run to the other phase inside the region only: outside it
     # (and beyond the image edge) there is no wall.
     from ..thinning import distance_map_sq
-    d = np.sqrt(distance_map_sq(m if roi is None else m | ~roi, spacing))
-    th, th_step = bounded_local_thickness(m, np.where(m, d, 0), spacing)
+    # In place: every full-volume array here costs 4 bytes per voxel.
+    d = distance_map_sq(m if roi is None else m | ~roi, spacing)
+    np.sqrt(d, out=d)
+    if roi is not None:
+        d[~m] = 0
+    th, th_step = bounded_local_thickness(m, d, spacing)
+    del d
     step("thickness")
-    d = np.sqrt(distance_map_sq(~m, spacing))
-    sp, sp_step = bounded_local_thickness(space, np.where(space, d, 0), spacing)
+    d = distance_map_sq(~m, spacing)
+    np.sqrt(d, out=d)
+    if roi is not None:
+        d[~space] = 0
+    sp, sp_step = bounded_local_thickness(space, d, spacing)
     del d
     step("separation")
     tb_th, tb_sp = float(th[m].mean()), float(sp[space].mean())
