@@ -61,15 +61,33 @@ def _ridge_flags(flat, plane_len, n_planes, deltas, steps, keep):
             keep[p] = ok
 
 
-def ridge_centres(dist, spacing):
-    """Foreground voxels whose inscribed ball is not inside a neighbour's ball.
+@numba.njit(cache=True)
+def _repad(flat, shape, pad_from, pad_to):
+    """Flat indices into ``shape`` padded by ``pad_from`` on every side,
+    rewritten in place as indices into ``shape`` padded by ``pad_to``."""
+    nd = len(shape)
+    src = np.empty(nd, np.int64)
+    dst = np.empty(nd, np.int64)
+    s_src = 1
+    s_dst = 1
+    for a in range(nd - 1, -1, -1):
+        src[a] = s_src
+        dst[a] = s_dst
+        s_src *= shape[a] + 2 * pad_from
+        s_dst *= shape[a] + 2 * pad_to
+    for i in range(len(flat)):
+        q = flat[i]
+        out = 0
+        for a in range(nd):
+            digit = q // src[a]
+            q -= digit * src[a]
+            out += (digit - pad_from + pad_to) * dst[a]
+        flat[i] = out
 
-    One compiled pass over the padded distance map (1 byte per voxel of
-    flags besides it); only the ridge voxels, a few per cent, get index
-    arrays.
 
-    Returns flat indices into ``dist``.
-    """
+def _ridge_points(dist, spacing):
+    """Distance-ridge voxels as flat indices into ``dist`` padded by one
+    voxel, and their radii: one compiled pass, 1 byte of flags per voxel."""
     spacing = np.asarray(spacing, float)
     pad = np.pad(np.asarray(dist, np.float32), 1)
     strides = c_strides(pad.shape)
@@ -79,9 +97,22 @@ def ridge_centres(dist, spacing):
     keep = np.zeros(pad.size, np.uint8)
     plane = int(np.prod(pad.shape[1:]))
     _ridge_flags(pad.ravel(), plane, pad.shape[0], deltas, steps, keep)
-    del pad
-    idx = np.unravel_index(np.flatnonzero(keep), tuple(s + 2 for s in dist.shape))
-    return np.ravel_multi_index(tuple(i - 1 for i in idx), dist.shape)
+    points = np.flatnonzero(keep)
+    del keep
+    return points, pad.ravel()[points]
+
+
+def ridge_centres(dist, spacing):
+    """Foreground voxels whose inscribed ball is not inside a neighbour's ball.
+
+    One compiled pass over the padded distance map (1 byte per voxel of
+    flags besides it).
+
+    Returns flat indices into ``dist``.
+    """
+    points, _ = _ridge_points(dist, spacing)
+    _repad(points, np.asarray(dist.shape, np.int64), 1, 0)
+    return points
 
 
 def _ball_offsets(r_max, spacing):
@@ -124,25 +155,28 @@ def local_thickness(mask, spacing=None, method="ridge", dist=None):
     out_shape = mask.shape
     if not mask.any():
         return np.zeros(out_shape, np.float32)
+    # Centres as flat indices of the padded output, without per-axis index
+    # arrays (the ridge can hold a quarter of the voxels of thin rods).
     if method == "ridge":
-        centres = ridge_centres(dist, spacing)
+        cflat, r = _ridge_points(dist, spacing)
+        pad_from = 1
     elif method == "all":
-        centres = np.flatnonzero(mask.ravel())
+        cflat = np.flatnonzero(mask.ravel())
+        r = np.asarray(dist, np.float32).ravel()[cflat]
+        pad_from = 0
     else:
         raise ValueError("method must be 'ridge' or 'all'")
-    r = dist.ravel()[centres]
     r_max = float(r.max())
     pad = int(np.ceil(r_max / spacing.min())) + 1
     padded_shape = tuple(s + 2 * pad for s in out_shape)
-    strides = np.array([int(np.prod(padded_shape[k + 1:])) for k in range(mask.ndim)])
-    cidx = np.unravel_index(centres, out_shape)
-    cflat = np.ravel_multi_index(tuple(i + pad for i in cidx), padded_shape)
+    _repad(cflat, np.asarray(out_shape, np.int64), pad_from, pad)
     off, off_len = _ball_offsets(r_max, spacing)
-    deltas = off @ strides
+    deltas = off @ c_strides(padded_shape)
     out = np.zeros(int(np.prod(padded_shape)), np.float32)
     # Largest radius first; a voxel keeps the first value painted on it.
     order = np.argsort(-r, kind="stable")
     r_sorted, c_sorted = r[order], cflat[order]
+    del order, cflat, r
     bounds = np.flatnonzero(np.diff(r_sorted)) + 1
     starts = np.concatenate([[0], bounds])
     stops = np.concatenate([bounds, [len(r_sorted)]])
