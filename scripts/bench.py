@@ -22,6 +22,8 @@
   and scikit-learn's permutation test (the earlier method) against the sliced
   Wasserstein distance and our fold loop (wall and CPU time, same findings),
   and the sliced distance's error and speed against the exact one;
+- memory: peak memory per voxel of ``analyze --measures bone`` on foams
+  (child processes), against our thinning alone;
 - report: the demo study's page, and a synthetic 1000-sample study (time and size);
 - paths: path counts up to the practical length on the foam graph and a
   10^5-node lattice, and the poset invariants against building the order
@@ -416,6 +418,31 @@ def bench_report(n_large=1000):
               f"{t:.2f} s, {size / 1e6:.2f} MB (targets: 30 s, 20 MB)")
 
 
+def bench_memory(sizes):
+    """Peak memory per voxel of ``analyze`` with the bone set, in a child
+    process per size (the mask is made before the clock, and its own bytes
+    are included)."""
+    print("\npeak memory of analyze --measures bone (child process, VmHWM):")
+    for size in sizes:
+        code = (
+            "import time, numpy as np, skelmorph as sm; from skelmorph.phantoms import foam; "
+            f"ph = foam(size={float(size)}, cell=16.0, rod_radius=2.5, seed=0); "
+            "t = time.perf_counter(); "
+            "sm.analyze(ph.mask, ph.spacing, measures='bone', n_radii=0, tree=None, "
+            "figures=False); print(time.perf_counter() - t)")
+        seconds, mb = _peak_rss_of(code)
+        base, base_mb = _peak_rss_of(
+            "import time, numpy as np, skelmorph as sm; from skelmorph.phantoms import foam; "
+            f"ph = foam(size={float(size)}, cell=16.0, rod_radius=2.5, seed=0); "
+            "t = time.perf_counter(); from skelmorph.thinning import thin; "
+            "thin(ph.mask, ph.spacing); print(time.perf_counter() - t)")
+        n = size ** 3
+        print(f"  {size}^3: {mb:7.0f} MB peak = {mb * 2**20 / n:5.1f} bytes/voxel, "
+              f"{seconds:6.1f} s; our thinning alone {base_mb:7.0f} MB "
+              f"({base_mb * 2**20 / n:4.1f} bytes/voxel), {base:5.1f} s "
+              f"(analyze / thinning x{seconds / base:.1f})")
+
+
 def bench_compare():
     import warnings
     from scipy.stats import spearmanr
@@ -552,9 +579,9 @@ def main(argv=None):
     ap.add_argument("--sizes", type=int, nargs="+", default=[128, 256])
     ap.add_argument("--only", nargs="+",
                     default=["thinning", "pipeline", "measures", "scans", "trees", "profiles",
-                             "paths", "cohort", "compare", "report"],
+                             "paths", "cohort", "compare", "report", "memory"],
                     choices=["thinning", "pipeline", "measures", "scans", "trees", "profiles",
-                             "paths", "cohort", "compare", "report"])
+                             "paths", "cohort", "compare", "report", "memory"])
     args = ap.parse_args(argv)
     sizes = args.sizes + ([512] if args.large else [])
     print(f"skelmorph {sm.__version__}, numpy {np.__version__}, python {sys.version.split()[0]}")
@@ -593,6 +620,8 @@ def main(argv=None):
         bench_paths(graph)
     if "cohort" in args.only:
         bench_cohort()
+    if "memory" in args.only:
+        bench_memory(sizes)
     if "compare" in args.only:
         bench_compare()
     if "report" in args.only:

@@ -444,3 +444,27 @@ def merged_signed_l1(pa, wa, pb, wb):
             x_prev = x
         total += acc
     return total / rows if rows else 0.0
+
+
+@njit(cache=True)
+def mesh_areas(verts, normals, faces, eps):
+    """Area of a triangle mesh, and of the same mesh with every vertex moved
+    by +eps and -eps along its normal: one pass, float64, no temporaries."""
+    out = np.zeros(3)
+    for f in range(faces.shape[0]):
+        i, j, k = faces[f, 0], faces[f, 1], faces[f, 2]
+        for s in range(3):
+            d = 0.0 if s == 0 else (eps if s == 1 else -eps)
+            ax = verts[j, 0] + d * normals[j, 0] - verts[i, 0] - d * normals[i, 0]
+            ay = verts[j, 1] + d * normals[j, 1] - verts[i, 1] - d * normals[i, 1]
+            az = verts[j, 2] + d * normals[j, 2] - verts[i, 2] - d * normals[i, 2]
+            bx = verts[k, 0] + d * normals[k, 0] - verts[i, 0] - d * normals[i, 0]
+            by = verts[k, 1] + d * normals[k, 1] - verts[i, 1] - d * normals[i, 1]
+            bz = verts[k, 2] + d * normals[k, 2] - verts[i, 2] - d * normals[i, 2]
+            cx = ay * bz - az * by
+            cy = az * bx - ax * bz
+            cz = ax * by - ay * bx
+            out[s] += 0.5 * np.sqrt(cx * cx + cy * cy + cz * cz)
+            if eps == 0.0:
+                break
+    return out

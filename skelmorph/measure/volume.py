@@ -286,7 +286,9 @@ def surface_and_smi(mask, spacing, bv=None, sigma=1.0, roi=None, slab_voxels=Non
     bs : float
     smi : float
     """
-    from skimage.measure import marching_cubes, mesh_surface_area
+    from skimage.measure import marching_cubes
+
+    from .._kernels import mesh_areas
     m = _check_3d(mask)
     spacing = tuple(float(s) for s in spacing)
     sp = np.asarray(spacing)
@@ -307,7 +309,8 @@ def surface_and_smi(mask, spacing, bv=None, sigma=1.0, roi=None, slab_voxels=Non
         verts, faces, _, _ = marching_cubes(part, level=0.5, spacing=spacing,
                                             allow_degenerate=False)
         faces = _own_faces(verts, _inside_faces(verts, faces, spacing, sub_roi), sp, z0, z1, lo)
-        bs += float(mesh_surface_area(verts.astype(np.float64), faces))
+        bs += float(mesh_areas(verts.astype(np.float64), np.zeros((len(verts), 3)), faces,
+                               0.0)[0])
         if sigma:
             # Smooth with the true volume edges where the slab has them.
             part = ndi.gaussian_filter(part, sigma)
@@ -320,15 +323,17 @@ def surface_and_smi(mask, spacing, bv=None, sigma=1.0, roi=None, slab_voxels=Non
             continue
         # float64: dS/dr is a small difference of two large areas.
         verts = verts.astype(np.float64)
-        s += float(mesh_surface_area(verts, faces))
         n = _unit_normals(normals.astype(np.float64))
         # Which way is out: sample the smoothed image half a voxel along n.
-        used = np.unique(faces)
+        used = np.zeros(len(verts), bool)
+        used[faces.ravel()] = True
         probe = (verts[used] + 0.5 * min(spacing) * n[used]) / sp
         votes[0] += float(ndi.map_coordinates(part, probe.T, order=1, mode="nearest").sum())
-        votes[1] += len(used)
-        grow += float(mesh_surface_area(verts + eps * n, faces))
-        shrink += float(mesh_surface_area(verts - eps * n, faces))
+        votes[1] += int(np.count_nonzero(used))
+        area, plus, minus = mesh_areas(verts, n, faces, eps)
+        s += area
+        grow += plus
+        shrink += minus
     outward = 1.0 if votes[1] and votes[0] / votes[1] < 0.5 else -1.0
     dsdr = outward * (grow - shrink) / (2 * eps)
     smi = 6.0 * bv * dsdr / (s * s) if s > 0 else float("nan")
