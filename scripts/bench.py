@@ -250,7 +250,7 @@ def bench_profiles(graph):
 
 def bench_measures(size):
     from skelmorph.measure.thickness import local_thickness
-    from skelmorph.measure.volume import edge_corrected_euler, mil_fabric, surface_and_smi
+    from skelmorph.measure.bone import edge_corrected_euler, mil_fabric, surface_and_smi
     from skelmorph.measure.vessel import vessel_measures
     from skelmorph.measure.venation import venation_measures
     ph = foam(size=float(size), cell=16.0, rod_radius=2.5, seed=0)

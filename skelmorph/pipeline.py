@@ -14,7 +14,7 @@ from .build import skeleton_graph
 from .graph import SkeletonGraph
 from .errors import InputError
 from .io import ImageData, check_image_array, normalise_unit, read_image, validate_spacing, write_csv, write_json
-from .measure.graph import branch_table, node_table, summarize
+from .measure.network import branch_table, node_table, summarize
 
 __all__ = ["AnalysisResult", "analyze", "write_results", "prepare_mask", "PreparedMask",
            "SegmentationWarning", "CAUTION"]
@@ -173,7 +173,7 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
         (:func:`skelmorph.radial_profiles`); 0 skips them.
     measures : {'bone', 'vessel', 'venation', 'all'} or list, optional
         Field measure sets added to the summary (see
-        :func:`skelmorph.measure.volume.bone_measures`,
+        :func:`skelmorph.measure.bone.bone_measures`,
         :func:`~skelmorph.measure.vessel.vessel_measures`,
         :func:`~skelmorph.measure.venation.venation_measures`); ``'all'`` means
         every set that applies to the image's dimensionality.
@@ -438,7 +438,7 @@ def _field_measures(sets, graph, mask, spacing, unit, roi, thickness_map, timing
     for name in sets:
         t0 = time.perf_counter()
         if name == "bone":
-            from .measure.volume import bone_measures
+            from .measure.bone import bone_measures
             res = bone_measures(mask, spacing, unit, thickness_maps=thickness_map, roi=roi)
             if thickness_map:
                 res, out["maps"] = res

@@ -38,7 +38,7 @@ def _m(key, kind, unit, description):
 
 
 _LIST = [
-    # graph (skelmorph.measure.graph)
+    # graph (skelmorph.measure.network)
     _m("total_length", "length", "{u}", "summed length of all branches (smoothed centrelines)"),
     _m("n_nodes", "count", "1", "nodes of the graph (junctions, tips, isolated points)"),
     _m("n_branches", "count", "1", "branches (edges between nodes, rings included)"),

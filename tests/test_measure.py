@@ -14,7 +14,7 @@ from skelmorph.measure.thickness import local_thickness
 from skelmorph.measure.venation import venation_measures
 from skelmorph.measure.vessel import (bifurcations, murray_exponent, tortuosity_indices,
                                       vessel_measures)
-from skelmorph.measure.volume import (bone_measures, edge_corrected_euler, mil_fabric,
+from skelmorph.measure.bone import (bone_measures, edge_corrected_euler, mil_fabric,
                                       surface_and_smi)
 from skelmorph.phantoms import _polyline_tube
 
@@ -315,7 +315,7 @@ def test_surface_by_slabs_equals_one_mesh(spacing):
     cube layers give the whole-volume BS and SMI (analytic identity; the
     halo covers the smoothing kernel).  Vertices are float32 relative to each
     slab's origin, so sums agree to about 1e-7, not to the last bit."""
-    from skelmorph.measure.volume import surface_and_smi
+    from skelmorph.measure.bone import surface_and_smi
     ph = sm.phantoms.make("foam", seed=3, spacing=spacing)
     m = ph.mask
     whole = surface_and_smi(m, ph.spacing, slab_voxels=10**12)
@@ -337,7 +337,7 @@ def test_euler_by_slabs_equals_whole_and_box_formula():
     equals scikit-image's euler_number (reference library), the box
     contribution equals the O&G box formula, for several slab sizes."""
     from skimage.measure import euler_number
-    from skelmorph.measure.volume import edge_corrected_euler, euler_in_region
+    from skelmorph.measure.bone import edge_corrected_euler, euler_in_region
     ph = sm.phantoms.make("foam", seed=5, spacing=(1.5, 1.0, 1.0))
     m = ph.mask
     chi, dchi = edge_corrected_euler(m)

@@ -15,7 +15,7 @@ from scipy import ndimage as ndi
 import skelmorph as sm
 from skelmorph.cli import main
 from skelmorph.io import write_tiff
-from skelmorph.measure.volume import bone_measures, edge_corrected_euler, euler_in_region
+from skelmorph.measure.bone import bone_measures, edge_corrected_euler, euler_in_region
 from skelmorph.roi import field_of_view, filled_outline
 
 from conftest import square_rod_lattice

@@ -203,7 +203,7 @@ def _figures(st, rows, significant, combined, before, after, labels, folder):
     bars = st["barcodes"]
     if bars is not None and len(bars):
         from ..descriptors.barcode import diagrams_from_table
-        from ..descriptors.images import PersistenceImager
+        from ..descriptors.persistence_images import PersistenceImager
         from ..report.figures import plot_persistence_means
         diagrams = diagrams_from_table(bars, cohort["sample"].tolist())
         if any(len(d) for d in diagrams):

@@ -69,7 +69,7 @@ def descriptor_distances(study, barcode_distance="sliced", progress=None):
     bars = study["barcodes"]
     if bars is not None and len(bars):
         from ..descriptors.distances import sliced_wasserstein_matrix, wasserstein_distance
-        from ..descriptors.images import PersistenceImager
+        from ..descriptors.persistence_images import PersistenceImager
         diagrams = diagrams_from_table(bars, samples)
         n = len(samples)
         if barcode_distance == "exact":

@@ -38,7 +38,7 @@ def feature_matrix(study):
                 names += [f"profile:{col}@{r:.3g}" for r in grid]
     bars = study["barcodes"]
     if bars is not None and len(bars):
-        from ..descriptors.images import PersistenceImager
+        from ..descriptors.persistence_images import PersistenceImager
         diagrams = diagrams_from_table(bars, samples)
         if any(len(x) for x in diagrams):
             pim = PersistenceImager(resolution=(6, 6))
