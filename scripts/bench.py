@@ -24,6 +24,8 @@
   and the sliced distance's error and speed against the exact one;
 - memory: peak memory per voxel of ``analyze --measures bone`` on foams
   (child processes), against our thinning alone;
+- flow: the Poiseuille/Kirchhoff solve on the foam graph and 10^5-branch
+  lattices, against a sparse product and a dense solve;
 - report: the demo study's page, and a synthetic 1000-sample study (time and size);
 - paths: path counts up to the practical length on the foam graph and a
   10^5-node lattice, and the poset invariants against building the order
@@ -521,6 +523,35 @@ def lattice_graph(shape):
     return SkeletonGraph.from_edges(coords, np.concatenate(edges))
 
 
+def bench_flow(graph):
+    """Poiseuille flow: the sparse solve on the foam graph and on lattices of
+    about 10^5 branches, against one sparse Laplacian product and a dense
+    solve of the same system where that fits."""
+    from scipy import sparse
+    from skelmorph.measure.flow import network_flow
+    print("\nnetwork flow (Kirchhoff, sparse LU):")
+    for name, g in (("foam graph", graph), ("lattice 32^3", lattice_graph((32, 32, 32))),
+                    ("lattice 12^3", lattice_graph((12, 12, 12)))):
+        tips = np.flatnonzero(g.node_degree == 1)
+        outlets = tips[1:] if len(tips) > 1 else np.array([g.n_nodes - 1])
+        inlet = [int(tips[0])] if len(tips) > 1 else [0]
+        r = np.full(g.n_edges, 1.0)
+        out, t = clock(network_flow, g, inlet, outlets, radius=r)
+        w = sparse.random(g.n_nodes, g.n_nodes, density=4 / max(g.n_nodes, 1), format="csr")
+        _, t_mv = clock(lambda: [w @ np.ones(g.n_nodes) for _ in range(100)])
+        line = (f"  {name}: {g.n_edges} branches, {g.n_nodes} nodes: {t:.3f} s "
+                f"({t / max(g.n_edges, 1) * 1e5:.2f} s per 10^5 branches; "
+                f"x{t / (t_mv / 100):.0f} one sparse product")
+        if g.n_nodes <= 3000:
+            lap = sparse.csgraph.laplacian(sparse.coo_matrix(
+                (np.ones(g.n_edges), (g.edges[:, 0], g.edges[:, 1])),
+                shape=(g.n_nodes, g.n_nodes)) + 0).toarray()
+            _, t_dense = clock(np.linalg.solve, lap[1:-1, 1:-1] + np.eye(g.n_nodes - 2) * 1e-9,
+                               np.ones(g.n_nodes - 2))
+            line += f"; a dense solve of the same size {t_dense:.3f} s"
+        print(line + ")")
+
+
 def order_complex_betti(graph, k, m):
     """Reference: build the order complex of P_{m..k} chain by chain (gudhi)."""
     import itertools
@@ -579,9 +610,9 @@ def main(argv=None):
     ap.add_argument("--sizes", type=int, nargs="+", default=[128, 256])
     ap.add_argument("--only", nargs="+",
                     default=["thinning", "pipeline", "measures", "scans", "trees", "profiles",
-                             "paths", "cohort", "compare", "report", "memory"],
+                             "paths", "flow", "cohort", "compare", "report", "memory"],
                     choices=["thinning", "pipeline", "measures", "scans", "trees", "profiles",
-                             "paths", "cohort", "compare", "report", "memory"])
+                             "paths", "flow", "cohort", "compare", "report", "memory"])
     args = ap.parse_args(argv)
     sizes = args.sizes + ([512] if args.large else [])
     print(f"skelmorph {sm.__version__}, numpy {np.__version__}, python {sys.version.split()[0]}")
@@ -609,7 +640,7 @@ def main(argv=None):
     if "scans" in args.only:
         with tempfile.TemporaryDirectory() as tmp:
             bench_scans(tmp)
-    if graph is None and {"trees", "profiles", "paths"} & set(args.only):
+    if graph is None and {"trees", "profiles", "paths", "flow"} & set(args.only):
         ph = foam(size=float(sizes[-1]), cell=16.0, rod_radius=2.5, seed=0)
         graph = sm.skeleton_graph(ph.mask, ph.spacing)
     if "trees" in args.only:
@@ -618,6 +649,8 @@ def main(argv=None):
         bench_profiles(graph)
     if "paths" in args.only:
         bench_paths(graph)
+    if "flow" in args.only:
+        bench_flow(graph)
     if "cohort" in args.only:
         bench_cohort()
     if "memory" in args.only:

@@ -282,7 +282,7 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
     timings["measure"] = time.perf_counter() - t0
     bar.update(note="measured")
     extra = _field_measures(sets, graph, mask, spacing, unit, roi_mask, thickness_map,
-                            timings, bar)
+                            timings, bar, root_rule=(root, root_point, root_face))
     for name, local in extra["maps"].items():  # maps of the ROI box, put back in the image
         full = np.zeros(array.shape, local.dtype)
         full[prep.box] = local
@@ -419,7 +419,8 @@ def _check_sets(sets, ndim):
         raise InputError(f"venation measures need a 2D image; this one is {ndim}D")
 
 
-def _field_measures(sets, graph, mask, spacing, unit, roi, thickness_map, timings, bar):
+def _field_measures(sets, graph, mask, spacing, unit, roi, thickness_map, timings, bar,
+                    root_rule=("thickest", None, None)):
     """Bone, vessel and venation measure sets, as asked."""
     out = {"summary": {}, "branch_columns": {}, "bifurcations": None, "maps": {}}
     if not sets:
@@ -449,6 +450,19 @@ def _field_measures(sets, graph, mask, spacing, unit, roi, thickness_map, timing
             out["summary"].update(summ)
             out["branch_columns"].update(cols)
             out["bifurcations"] = bif
+            # Poiseuille flow from the root (the inlet) to the other free ends.
+            from .measure.flow import flow_measures
+            from .rooting import choose_root
+            try:
+                inlet = choose_root(graph, root_rule[0], point=root_rule[1],
+                                    face=root_rule[2] or "z-")
+                fsum, fcols = flow_measures(graph, int(inlet))
+                out["summary"].update(fsum)
+                out["branch_columns"].update(fcols)
+            except InputError as exc:
+                note = f"flow measures skipped: {exc}"
+                out["summary"].setdefault("skipped_measures", {})["flow"] = note
+                warnings.warn(note, SegmentationWarning, stacklevel=3)
         elif name == "venation":
             from .measure.venation import venation_measures
             out["summary"].update(venation_measures(graph, mask, spacing, unit, region=roi,

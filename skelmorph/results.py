@@ -96,6 +96,19 @@ _LIST = [
        "+ 1) (Bullitt et al. 2003)"),
     _m("mean_sum_of_angles", "density", "rad {u}^-1", "total turning angle per unit length "
        "(Bullitt et al. 2003)"),
+    # flow (skelmorph.measure.flow: Poiseuille branches, Kirchhoff's laws)
+    _m("flow_conductance", "index", "{u}^3", "hydraulic conductance of the network from the "
+       "root to the free ends, per unit viscosity (Poiseuille tubes)"),
+    _m("flow_resistance", "index", "{u}^-3", "hydraulic resistance of the network, per unit "
+       "viscosity (1 / conductance)"),
+    _m("flow_weighted_radius", "length", "{u}", "mean branch radius weighted by the flow "
+       "through each branch"),
+    _m("flow_weighted_tortuosity", "ratio", "1", "mean branch tortuosity weighted by flow"),
+    _m("flow_outlets", "count", "1", "free ends taken as outlets"),
+    _m("flow_top_outlet_share", "ratio", "1", "share of the inflow leaving by the outlet "
+       "that takes most"),
+    _m("flow_top_decile_share", "ratio", "1", "share of the inflow leaving by the tenth of "
+       "the outlets that take most"),
     # venation (Sack & Scoffoni 2013, New Phytol 198:983)
     _m("VLA", "density", "{u} {u}^-2", "vein length per area of lamina"),
     _m("areole_count", "count", "1", "areoles: regions of lamina enclosed by veins"),
