@@ -490,6 +490,20 @@ def write_results(result, out, figures=True):
     if result.bifurcations is not None:
         write_csv(out / "bifurcations.csv", result.bifurcations)
         files.append(out / "bifurcations.csv")
+    if figures and "flow" in result.branch_columns:
+        from .report.figures import new_axes, plot_flow, save
+        fig, ax = new_axes(1, 1, size=(5.8, 4.6), fixed=True)
+        lc = plot_flow(g, result.branch_columns["flow"], ax[0, 0], unit=g.unit)
+        from matplotlib.ticker import FuncFormatter, NullFormatter
+        from .results import format_value
+        cb = fig.colorbar(lc, ax=ax[0, 0], shrink=0.8,
+                          label=f"flow ({g.unit}^3 per unit time and viscosity, model)")
+        cb.ax.yaxis.set_major_formatter(FuncFormatter(lambda v, _: format_value(v, 2)))
+        cb.ax.yaxis.set_minor_formatter(NullFormatter())
+        ax[0, 0].set_title("Poiseuille flow from the root (a model, not measured flow)",
+                           fontsize=8)
+        save(fig, out / "flow.png")
+        files.append(out / "flow.png")
     for name, array in result.maps.items():
         from .io import write_tiff
         write_tiff(out / f"{name}.tif", array, g.spacing, g.unit)

@@ -262,3 +262,35 @@ def plot_persistence_means(images, shape, x_edges, y_edges, labels, unit=""):
         ax.set_ylabel(f"persistence ({unit})")
     fig.colorbar(im, ax=axes.ravel().tolist(), shrink=0.8, label="mean density")
     return fig
+
+
+def plot_flow(graph, flow, ax, unit="um"):
+    """The centrelines coloured by the log of the flow through each branch
+    (3D networks drawn on their two widest axes); returns the line collection."""
+    from matplotlib.collections import LineCollection
+    from matplotlib.colors import LogNorm
+    pts, off = graph.points, graph.offsets
+    extent = np.ptp(pts, axis=0) if len(pts) else np.ones(graph.ndim)
+    axes2 = np.sort(np.argsort(extent)[::-1][:2])
+    segs, vals = [], []
+    flow = np.asarray(flow, float)
+    for e in range(graph.n_edges):
+        if not (np.isfinite(flow[e]) and flow[e] > 0):
+            continue
+        p = pts[off[e]:off[e + 1]][:, axes2]
+        segs.extend(np.stack([p[:-1], p[1:]], axis=1))
+        vals.extend([flow[e]] * (len(p) - 1))
+    names = "zyx"[-graph.ndim:]
+    lc = LineCollection(np.array(segs)[:, :, ::-1] if segs else [], cmap="cividis",
+                        linewidths=1.2)
+    if vals:
+        vals = np.array(vals)
+        lc.set_array(vals)
+        lc.set_norm(LogNorm(vmin=max(vals.min(), vals.max() * 1e-6), vmax=vals.max()))
+    ax.add_collection(lc)
+    ax.autoscale()
+    ax.set_aspect("equal")
+    ax.invert_yaxis()
+    ax.set_xlabel(f"{names[axes2[1]]} ({unit})")
+    ax.set_ylabel(f"{names[axes2[0]]} ({unit})")
+    return lc
