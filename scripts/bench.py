@@ -480,8 +480,10 @@ def bench_compare():
     from sklearn.neighbors import KNeighborsClassifier, NeighborhoodComponentsAnalysis
     from sklearn.pipeline import make_pipeline
     from sklearn.preprocessing import StandardScaler
-    from skelmorph.cohort.compare import (_silhouette, classify, compare_cohort, feature_matrix,
-                                          load_study)
+    from skelmorph.cohort.compare import compare_cohort
+    from skelmorph.cohort.distances import silhouette as _silhouette
+    from skelmorph.cohort.models import classify, feature_matrix
+    from skelmorph.cohort.study import load_study
     from skelmorph.demo import run_demo
     from skelmorph.descriptors.barcode import diagrams_from_table
     from skelmorph.descriptors.distances import (sliced_wasserstein_matrix,

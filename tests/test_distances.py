@@ -6,7 +6,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from skelmorph.cohort.compare import _silhouette, classify
+from skelmorph.cohort.distances import silhouette as _silhouette
+from skelmorph.cohort.models import classify
 from skelmorph.descriptors.distances import (sliced_wasserstein_distance,
                                              sliced_wasserstein_matrix, wasserstein_distance)
 from skelmorph.errors import InputError

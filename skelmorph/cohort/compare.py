@@ -21,17 +21,16 @@ import numpy as np
 
 from ..errors import SkelmorphError
 from ..io import write_csv, write_json
-from .distances import (BARCODE_DISTANCES, PROFILE_DESCRIPTORS, SLICED_DIRECTIONS,  # noqa: F401
-                        descriptor_distances, learn_weights, normalised, silhouette)
-from .models import (classical_mds, classify, cluster_ari, feature_matrix,  # noqa: F401
+from .distances import (BARCODE_DISTANCES, PROFILE_DESCRIPTORS, SLICED_DIRECTIONS,
+                        descriptor_distances, learn_weights, normalised)
+from .models import (classical_mds, classify, cluster_ari, feature_matrix,
                      nca_feature_weights)
 from .stats import benjamini_hochberg, compare_groups
-from .study import load_study, scalar_measures  # noqa: F401
+from .study import load_study, scalar_measures
 
 __all__ = ["compare_cohort", "design_notes", "SEPARATION_INDEX"]
 
 SEPARATION_INDEX = "silhouette"
-_silhouette = silhouette  # older name, kept for scripts
 
 
 def design_notes(counts, alpha):

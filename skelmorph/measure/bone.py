@@ -340,6 +340,18 @@ def surface_and_smi(mask, spacing, bv=None, sigma=1.0, roi=None, slab_voxels=Non
     return bs, float(smi)
 
 
+def _local_thickness_in(phase, no_wall, spacing):
+    """Local thickness of ``phase`` with walls at the voxels outside
+    ``no_wall``; the distance map is made and masked in place (each
+    full-volume array costs 4 bytes per voxel)."""
+    from ..thinning import distance_map_sq
+    d = distance_map_sq(no_wall, spacing)
+    np.sqrt(d, out=d)
+    if no_wall is not phase:
+        d[~phase] = 0
+    return bounded_local_thickness(phase, d, spacing)
+
+
 def bone_measures(mask, spacing, unit="um", thickness_maps=False, progress=None, roi=None):
     """The bone standard set of a 3D binary image.
 
@@ -400,21 +412,9 @@ def bone_measures(mask, spacing, unit="um", thickness_maps=False, progress=None,
     step = progress or (lambda note: None)
     # Distances run to the other phase inside the region only: outside it
     # (and beyond the image edge) there is no wall.
-    from ..thinning import distance_map_sq
-    # In place: every full-volume array here costs 4 bytes per voxel.
-    d = distance_map_sq(m if roi is None else m | ~roi, spacing)
-    np.sqrt(d, out=d)
-    if roi is not None:
-        d[~m] = 0
-    th, th_step = bounded_local_thickness(m, d, spacing)
-    del d
+    th, th_step = _local_thickness_in(m, m if roi is None else m | ~roi, spacing)
     step("thickness")
-    d = distance_map_sq(~m, spacing)
-    np.sqrt(d, out=d)
-    if roi is not None:
-        d[~space] = 0
-    sp, sp_step = bounded_local_thickness(space, d, spacing)
-    del d
+    sp, sp_step = _local_thickness_in(space, space if roi is None else ~m, spacing)
     step("separation")
     tb_th, tb_sp = float(th[m].mean()), float(sp[space].mean())
     bs, smi = surface_and_smi(m, spacing, bv, roi=roi)
