@@ -105,12 +105,13 @@ def _measures(v):
     if v is None:
         return None
     names = [v] if isinstance(v, str) else v
-    allowed = ("bone", "vessel", "venation", "all", "none")
+    allowed = ("bone", "vessel", "venation", "cortical", "all", "none")
     if not isinstance(names, (list, tuple)):
         return f"must be a name or a list of names, not {v!r}"
     bad = [n for n in names if n not in allowed]
     if bad:
-        return f"has an unknown measure set {bad[0]!r}; choose from bone, vessel, venation or all"
+        return (f"has an unknown measure set {bad[0]!r}; choose from bone, vessel, venation, "
+                "cortical or all")
     return None
 
 
@@ -206,8 +207,10 @@ ANALYZE_OPTIONS = (
     Option("merge_junctions", True, _boolean, "contract branches of at most 3 voxels between "
            "junctions into one node", _GRAPH),
     Option("measures", None, _measures, "field measure sets: bone (3D), vessel, venation (2D), "
-           "all that apply, or none", _MEAS,
-           cli={"nargs": "+", "choices": ["bone", "vessel", "venation", "all", "none"]}),
+           "cortical (3D, bone along axis 0; never part of 'all'), all that apply, or none",
+           _MEAS,
+           cli={"nargs": "+", "choices": ["bone", "vessel", "venation", "cortical", "all",
+                                          "none"]}),
     Option("thickness_map", False, _boolean, "bone: also write thickness.tif and "
            "separation.tif (diameters)", _MEAS),
     Option("root", "thickest", _root_choice, "root rule", _TREE,

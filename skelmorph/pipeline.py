@@ -129,6 +129,7 @@ class AnalysisResult:
     branch_columns: dict = field(default_factory=dict, repr=False)
     bifurcations: dict = field(default=None, repr=False)
     maps: dict = field(default_factory=dict, repr=False)
+    tables: dict = field(default_factory=dict, repr=False)  # name -> columns, as CSV
 
 
 def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dark=False,
@@ -308,6 +309,7 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
                          f"{work_limit:g} s); ask for fewer or raise --work-limit")
     summary.update(extra.pop("summary"))
     result.branch_columns = extra["branch_columns"]
+    result.tables = extra["tables"]
     result.bifurcations = extra["bifurcations"]
     result.maps = extra["maps"]
     if tree is not None and graph.n_nodes:
@@ -390,7 +392,7 @@ def _finalise_summary(summary):
     return summary
 
 
-MEASURE_SETS = ("bone", "vessel", "venation")
+MEASURE_SETS = ("bone", "vessel", "venation", "cortical")
 #: ``measures='all'`` leaves out the bone set below this solid share of the
 #: ROI: trabecular bone and foams are far denser (BV/TV of 5-40 % in the
 #: micro-CT guideline's examples, Bouxsein et al. 2010), a vessel tree is
@@ -417,16 +419,22 @@ def _check_sets(sets, ndim):
                          "(use --measures vessel or venation for 2D images)")
     if "venation" in sets and ndim != 2:
         raise InputError(f"venation measures need a 2D image; this one is {ndim}D")
+    if "cortical" in sets and ndim != 3:
+        raise InputError(f"the cortical set needs a 3D image with the bone along axis 0; "
+                         f"this one is {ndim}D")
 
 
 def _field_measures(sets, graph, mask, spacing, unit, roi, thickness_map, timings, bar,
                     root_rule=("thickest", None, None)):
     """Bone, vessel and venation measure sets, as asked."""
-    out = {"summary": {}, "branch_columns": {}, "bifurcations": None, "maps": {}}
+    out = {"summary": {}, "branch_columns": {}, "bifurcations": None, "maps": {}, "tables": {}}
     if not sets:
         return out
     if "all" in sets:
-        sets = ["bone", "vessel"] if mask.ndim == 3 else ["vessel", "venation"]
+        # 'all' is every set that applies to the dimension; the cortical set
+        # needs a shell along axis 0 and comes only when asked for.
+        extra_sets = [s for s in sets if s == "cortical"]
+        sets = (["bone", "vessel"] if mask.ndim == 3 else ["vessel", "venation"]) + extra_sets
         inside = mask.size if roi is None else int(np.count_nonzero(roi))
         share = np.count_nonzero(mask) / max(inside, 1)
         if "bone" in sets and share < MIN_POROUS_SHARE:
@@ -463,6 +471,11 @@ def _field_measures(sets, graph, mask, spacing, unit, roi, thickness_map, timing
                 note = f"flow measures skipped: {exc}"
                 out["summary"].setdefault("skipped_measures", {})["flow"] = note
                 warnings.warn(note, SegmentationWarning, stacklevel=3)
+        elif name == "cortical":
+            from .measure.cortical import cortical_measures
+            summ, slices = cortical_measures(mask, spacing, unit)
+            out["summary"].update(summ)
+            out["tables"]["cortical_slices"] = slices
         elif name == "venation":
             from .measure.venation import venation_measures
             out["summary"].update(venation_measures(graph, mask, spacing, unit, region=roi,
@@ -490,6 +503,24 @@ def write_results(result, out, figures=True):
     if result.bifurcations is not None:
         write_csv(out / "bifurcations.csv", result.bifurcations)
         files.append(out / "bifurcations.csv")
+    for name, table in result.tables.items():
+        write_csv(out / f"{name}.csv", table)
+        files.append(out / f"{name}.csv")
+    if figures and "cortical_slices" in result.tables:
+        from .report.figures import new_axes, save
+        t = result.tables["cortical_slices"]
+        fig, ax = new_axes(2, 1, size=(3.6, 2.8), fixed=True)
+        for key in ("Tt.Ar", "Ct.Ar", "Ma.Ar"):
+            ax[0, 0].plot(t["position"], t[key], label=key)
+        ax[0, 0].set_xlabel(f"position along axis 0 ({g.unit})")
+        ax[0, 0].set_ylabel(f"area ({g.unit}^2)")
+        ax[0, 0].legend(fontsize=7, frameon=False)
+        ax[0, 1].plot(t["position"], t["Ct.Ar/Tt.Ar"], color="0.2")
+        ax[0, 1].set_xlabel(f"position along axis 0 ({g.unit})")
+        ax[0, 1].set_ylabel("Ct.Ar/Tt.Ar")
+        fig.suptitle("cortical cross-sections (research measurements)", fontsize=9)
+        save(fig, out / "cortical.png")
+        files.append(out / "cortical.png")
     if figures and "flow" in result.branch_columns:
         from .report.figures import new_axes, plot_flow, save
         fig, ax = new_axes(1, 1, size=(5.8, 4.6), fixed=True)

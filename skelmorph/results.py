@@ -96,6 +96,17 @@ _LIST = [
        "+ 1) (Bullitt et al. 2003)"),
     _m("mean_sum_of_angles", "density", "rad {u}^-1", "total turning angle per unit length "
        "(Bullitt et al. 2003)"),
+    # cortical bone (Bouxsein et al. 2010; per slice along axis 0, then the mean)
+    _m("Tt.Ar", "area", "{u}^2", "total cross-sectional area inside the periosteal envelope"),
+    _m("Ct.Ar", "area", "{u}^2", "cortical bone area of a cross-section"),
+    _m("Ma.Ar", "area", "{u}^2", "medullary (marrow) area of a cross-section"),
+    _m("Ct.Ar/Tt.Ar", "ratio", "1", "cortical area fraction"),
+    _m("Ct.Th", "length", "{u}", "mean cortical thickness (maximal spheres)"),
+    _m("Ct.Th.SD", "length", "{u}", "standard deviation of the cortical thickness"),
+    _m("Ct.Po", "ratio", "1", "cortical porosity: pore volume over bone plus pore volume"),
+    _m("pore_count", "count", "1", "enclosed pores in the cortex (3D pieces)"),
+    _m("mean_pore_volume", "volume", "{u}^3", "mean volume of a cortical pore"),
+    _m("cortical_slices", "count", "1", "cross-sections holding bone"),
     # flow (skelmorph.measure.flow: Poiseuille branches, Kirchhoff's laws)
     _m("flow_conductance", "index", "{u}^3", "hydraulic conductance of the network from the "
        "root to the free ends, per unit viscosity (Poiseuille tubes)"),

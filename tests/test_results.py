@@ -25,6 +25,11 @@ def summaries():
     ph = sm.phantoms.make("venation")
     out["venation, all sets"] = sm.analyze(ph.mask, ph.spacing, measures="all", n_radii=20,
                                            figures=False).summary
+    yy, xx = np.mgrid[-22:23, -22:23]
+    shell = (yy ** 2 + xx ** 2 <= 20 ** 2) & (yy ** 2 + xx ** 2 > 12 ** 2)
+    out["tube, cortical and vessel"] = sm.analyze(
+        np.repeat(shell[None], 30, axis=0), (1.0, 1.0, 1.0), measures=["cortical", "vessel"],
+        n_radii=20, figures=False).summary
     ph = sm.phantoms.make("y")
     out["y, no sets"] = sm.analyze(ph.mask, ph.spacing, n_radii=20, figures=False).summary
     return out
