@@ -468,3 +468,18 @@ def mesh_areas(verts, normals, faces, eps):
             if eps == 0.0:
                 break
     return out
+
+
+@njit(cache=True)
+def branch_end_of_points(order, parent, critical):
+    """For every point, the critical point that ends its branch (the first
+    critical point at or below it); critical points end their own branch."""
+    out = np.full(len(parent), -1, np.int64)
+    for k in range(len(order) - 1, -1, -1):  # children before parents
+        p = order[k]
+        if critical[p]:
+            out[p] = p
+        q = parent[p]
+        if q >= 0 and not critical[q]:
+            out[q] = out[p]
+    return out

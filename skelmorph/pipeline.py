@@ -319,6 +319,14 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
             graph, root=root, tree=tree, n_trees=n_trees, filtration=filtration, seed=seed,
             point=root_point, face=root_face or "z-")
         summary.update(tsum)
+        if result.trees:  # diameter-defined orders of the first tree (Jiang et al. 1994)
+            from .measure.orders import diameter_strahler
+            ds = diameter_strahler(result.trees[0])
+            summary["max_diameter_order"] = int(max(ds["orders"]["order"], default=0))
+            rows = np.asarray(ds["orders"]["order"], int) - 1  # the orders present
+            result.tables["diameter_orders"] = {
+                **ds["orders"], **{f"springs_from_{n + 1}": ds["connectivity"][rows, n]
+                                   for n in rows}}
         timings["trees"] = time.perf_counter() - t0
     bar.update(note="trees")
     if n_radii and graph.n_nodes:

@@ -139,6 +139,8 @@ _LIST = [
     _m("barcode_mean_persistence", "length", "{u}", "mean bar length"),
     _m("barcode_mean_birth", "length", "{u}", "mean filtration value at which bars are born"),
     _m("max_strahler_order", "count", "1", "Strahler order of the root (Strahler 1957)"),
+    _m("max_diameter_order", "count", "1", "highest diameter-defined Strahler order of the "
+       "tree (Jiang et al. 1994)"),
     _m("bifurcation_ratio", "ratio", "1", "mean ratio of branch counts of consecutive Strahler "
        "orders (Horton 1945)"),
     # radial profiles (Sholl 1953)
