@@ -29,3 +29,23 @@ def square_rod_lattice(n, a, d):
         line[c - d // 2:c - d // 2 + d] = True
     z, y, x = np.meshgrid(line, line, line, indexing="ij")
     return (y & x) | (z & x) | (z & y)
+
+
+def binary_tree_layout(depth, radius_of_generation, length_of_generation, spread=0.4):
+    """A stem then ``depth`` generations of binary splits in the plane:
+    (parent, coords, radius, generation) per point, the root first."""
+    parent, coords = [-1, 0], [[0.0, 0.0], [0.0, length_of_generation(0)]]
+    radius, generation = [radius_of_generation(0)] * 2, [0, 0]
+    frontier = [(1, 0.0, length_of_generation(0), np.pi / 2)]
+    for g in range(1, depth + 1):
+        nxt = []
+        for node, x, y, a in frontier:
+            for turn in (-spread, spread):
+                b, step = a + turn, length_of_generation(g)
+                coords.append([x + step * np.cos(b), y + step * np.sin(b)])
+                parent.append(node)
+                radius.append(radius_of_generation(g))
+                generation.append(g)
+                nxt.append((len(coords) - 1, coords[-1][0], coords[-1][1], b))
+        frontier = nxt
+    return parent, coords, radius, generation

@@ -10,6 +10,8 @@ from skelmorph import SkeletonGraph
 from skelmorph.errors import InputError
 from skelmorph.measure.flow import flow_measures, network_flow
 
+from conftest import binary_tree_layout
+
 
 def poiseuille_resistance(r, length, mu=1.0):
     """Hagen-Poiseuille: R = 8 mu L / (pi r^4) (e.g. Sutera & Skalak 1993)."""
@@ -48,27 +50,11 @@ def test_tubes_in_parallel_add_conductances():
 def _binary_tree(depth, r0, l0, r_ratio, l_ratio):
     """Symmetric binary tree: generation k has 2^k branches of radius
     r0 r_ratio^k and length l0 l_ratio^k (a stem first)."""
-    nodes, edges, radii, lengths = [[0.0, 0.0]], [], [], []
-    frontier = [(0, 0.0, 0.0, np.pi / 2)]
-    nodes.append([0.0, l0])
-    edges.append([0, 1])
-    radii.append(r0)
-    lengths.append(l0)
-    frontier = [(1, 0.0, l0, np.pi / 2)]
-    for k in range(1, depth + 1):
-        nxt = []
-        for node, x, y, angle in frontier:
-            for turn in (-0.4, 0.4):
-                a = angle + turn
-                length = l0 * l_ratio ** k
-                nodes.append([x + length * np.cos(a), y + length * np.sin(a)])
-                edges.append([node, len(nodes) - 1])
-                radii.append(r0 * r_ratio ** k)
-                lengths.append(length)
-                nxt.append((len(nodes) - 1, nodes[-1][0], nodes[-1][1], a))
-        frontier = nxt
-    g = SkeletonGraph.from_edges(np.array(nodes), np.array(edges))
-    return g, np.array(radii), np.array(lengths)
+    parent, coords, radius, _ = binary_tree_layout(depth, lambda k: r0 * r_ratio ** k,
+                                                   lambda k: l0 * l_ratio ** k)
+    edges = np.array([[p, i] for i, p in enumerate(parent) if p >= 0])
+    g = SkeletonGraph.from_edges(np.array(coords), edges)
+    return g, np.array(radius)[edges[:, 1]], g.edge_length
 
 
 def test_symmetric_binary_tree_closed_form():

@@ -7,28 +7,21 @@ import pytest
 from skelmorph import Tree
 from skelmorph.measure.orders import diameter_strahler, strahler_order
 
+from conftest import binary_tree_layout
+
 
 def binary_tree(depth, radius_of_generation, length=10.0, extra=None):
     """A stem then ``depth`` generations of binary splits; generation g has
-    radius radius_of_generation(g).  ``extra``: (tip generation, twig radius)
-    splits the first tip once more into two twigs."""
-    parent, coords, radius = [-1, 0], [[0.0, 0.0], [0.0, length]], [radius_of_generation(0)] * 2
-    frontier = [(1, 0.0, length, np.pi / 2)]
-    for g in range(1, depth + 1):
-        nxt = []
-        for node, x, y, a in frontier:
-            for turn in (-0.5, 0.5):
-                b = a + turn
-                coords.append([x + length * np.cos(b), y + length * np.sin(b)])
-                parent.append(node)
-                radius.append(radius_of_generation(g))
-                nxt.append((len(coords) - 1, coords[-1][0], coords[-1][1], b))
-        frontier = nxt
+    radius radius_of_generation(g).  ``extra``: a twig radius that splits the
+    first tip once more into two twigs."""
+    parent, coords, radius, _ = binary_tree_layout(depth, radius_of_generation,
+                                                   lambda g: length, spread=0.5)
     if extra is not None:
-        node, x, y, a = frontier[0]
+        tip = len(coords) - 2 ** depth          # the first tip of the last generation
+        x, y = coords[tip]
         for turn in (-0.5, 0.5):
-            coords.append([x + 2 * np.cos(a + turn), y + 2 * np.sin(a + turn)])
-            parent.append(node)
+            coords.append([x + 2 * np.cos(np.pi / 2 + turn), y + 2 * np.sin(np.pi / 2 + turn)])
+            parent.append(tip)
             radius.append(extra)
     return Tree.from_parents(parent, coords, radius=radius)
 
