@@ -348,7 +348,10 @@ def write_sample_report(folder, result=None):
              "<h2>Measures</h2>", _table(["measure", "value", "unit", "what it is"], rows),
              _provenance_block(summary)]
     for name, cap in (("barcode.png", "Elder-rule barcode and persistence diagram."),
-                      ("profiles.png", "Radial profiles around the root.")):
+                      ("profiles.png", "Radial profiles around the root."),
+                      ("flow.png", "Modelled Poiseuille flow from the root to the free ends "
+                                   "(rigid tubes, laminar flow; not measured blood flow)."),
+                      ("cortical.png", "Cortical areas per cross-section along axis 0.")):
         if (folder / name).exists():
             parts.append(_img(name, name, cap))
     parts.append("<h2>Software</h2>" + _table(["software", "version"],
