@@ -139,19 +139,25 @@ class Option:
         return "--" + self.name.replace("_", "-")
 
 
-def _tree_choice(v):
+# Allowed values that live in modules importing scipy: looked up on use, so
+# that the check and the command-line choices read one list.
+def _tree_methods():
     from .rooting import TREE_METHODS
-    return _choice(*TREE_METHODS, "none", none=True)(v)
+    return [*TREE_METHODS, "none"]
 
 
-def _root_choice(v):
+def _root_methods():
     from .rooting import ROOT_METHODS
-    return _choice(*ROOT_METHODS)(v)
+    return list(ROOT_METHODS)
 
 
-def _filtration_choice(v):
+def _filtrations():
     from .descriptors.barcode import FILTRATIONS
-    return _choice(*FILTRATIONS)(v)
+    return list(FILTRATIONS)
+
+
+def _lazy_choice(values, none=False):
+    return lambda v: _choice(*values(), none=none)(v)
 
 
 def _root_point(v):
@@ -213,22 +219,20 @@ ANALYZE_OPTIONS = (
                                           "none"]}),
     Option("thickness_map", False, _boolean, "bone: also write thickness.tif and "
            "separation.tif (diameters)", _MEAS),
-    Option("root", "thickest", _root_choice, "root rule", _TREE,
-           cli={"choices": lambda: __import__("skelmorph.rooting").rooting.ROOT_METHODS}),
+    Option("root", "thickest", _lazy_choice(_root_methods), "root rule", _TREE,
+           cli={"choices": _root_methods}),
     Option("root_point", None, _root_point, "with --root point: position in (z) y x order",
            _TREE, "length", cli={"type": float, "nargs": "+", "metavar": "C"}),
     Option("root_face", None, _choice(*_FACES, none=True), "with --root face: z-, z+, y-, y+, "
            "x- or x+ (default z-)", _TREE, cli={"choices": list(_FACES)}),
-    Option("tree", "shortest", _tree_choice, "spanning tree rule ('none' skips the tree "
-           "descriptors)", _TREE,
-           cli={"choices": lambda: [*__import__("skelmorph.rooting").rooting.TREE_METHODS,
-                                    "none"]}),
+    Option("tree", "shortest", _lazy_choice(_tree_methods, none=True),
+           "spanning tree rule ('none' skips the tree descriptors)", _TREE,
+           cli={"choices": _tree_methods}),
     Option("n_trees", 1, _integer(1, 100_000, none=False), "with --tree random: number of "
            "random spanning trees; scalars become mean and spread", _TREE,
            cli={"type": int, "metavar": "N"}),
-    Option("filtration", "radial", _filtration_choice, "barcode filtration", _TREE,
-           cli={"choices": lambda: __import__(
-               "skelmorph.descriptors.barcode").descriptors.barcode.FILTRATIONS}),
+    Option("filtration", "radial", _lazy_choice(_filtrations), "barcode filtration", _TREE,
+           cli={"choices": _filtrations}),
     Option("seed", 0, _integer(0, 2**32 - 1, none=False), "seed of random trees", _TREE,
            cli={"type": int}),
     Option("n_radii", 200, _integer(0, 1_000_000, none=False), "radii of the radial (Sholl-type) "
