@@ -50,10 +50,11 @@ from .skeleton import resample_isotropic, skeletonize
 from .centreline_radius import centreline_radius
 from .cleanup import (_dissolve_degree_two, _drop_spurious_loops, _extend_tips, _finish,
                       _merge_close_junctions, _prune_spurs)
-from .rawgraph import _raw_graph, _restore_vanished, _timed
+from .rawgraph import _raw_graph, _raw_graph_of_voxels, _restore_vanished, _timed
 from .voxels import euler_characteristic
 
-__all__ = ["skeleton_graph", "graph_from_skeleton", "centreline_radius"]
+__all__ = ["skeleton_graph", "graph_from_skeleton", "graph_from_voxels", "centreline_radius",
+           "rescale_graph"]
 
 
 def graph_from_skeleton(skel, mask, spacing=None, *, unit="um", prune=True, prune_factor=1.5,
@@ -72,9 +73,51 @@ def graph_from_skeleton(skel, mask, spacing=None, *, unit="um", prune=True, prun
     if skel.shape != mask.shape:
         raise InputError(f"skeleton shape {skel.shape} differs from mask shape {mask.shape}")
     w = _raw_graph(skel, mask, spacing, radius_method, timings, dist_sq)
+    return _clean_graph(w, euler_characteristic(np.argwhere(skel), skel.shape),
+                        lambda: count_cavities(mask), spacing, unit, mask.shape, prune,
+                        prune_factor, min_branch_length, merge_junctions, extend_tips, smoothing,
+                        timings, meta, mask=mask)
+
+
+def graph_from_voxels(coords, radii, shape, spacing, *, cavities, volumes=None, unit="um",
+                      prune=True, prune_factor=1.5, min_branch_length=0.0, merge_junctions=True,
+                      extend_tips=False, smoothing=2.0, timings=None, meta=None):
+    """Build the graph of centreline voxels given as coordinates, without arrays
+    of the image's size (the chunked analysis, :mod:`skelmorph.chunked`).
+
+    Parameters
+    ----------
+    coords : (n, d) int array
+        Centreline voxel indices, sorted in C order.
+    radii : (n,) float array
+        Distance to the background at each voxel (``spacing`` units).
+    shape : tuple
+        Shape of the image the voxels lie in.
+    cavities : callable
+        Returns the number of enclosed background components of the mask;
+        called only when the voxel graph has more loops than the thinning
+        can have made.
+    volumes : callable, optional
+        Branch volumes for equivalent radii (see
+        :func:`skelmorph.radius.equivalent_radius`); without it
+        ``edge_radius`` is None.
+
+    Other parameters are those of :func:`skeleton_graph`.
+    """
+    spacing = validate_spacing(spacing, len(shape))
+    w = _raw_graph_of_voxels(np.asarray(coords, np.int64), tuple(shape), spacing,
+                             np.asarray(radii, np.float64), timings)
+    return _clean_graph(w, euler_characteristic(coords, shape), cavities, spacing, unit, shape,
+                        prune, prune_factor, min_branch_length, merge_junctions, extend_tips,
+                        smoothing, timings, meta, volumes=volumes)
+
+
+def _clean_graph(w, euler, cavities, spacing, unit, shape, prune, prune_factor,
+                 min_branch_length, merge_junctions, extend_tips, smoothing, timings, meta,
+                 mask=None, volumes=None):
+    """Steps 6-8 of the module docstring on a raw graph."""
     with _timed(timings, "topology"):
-        _drop_spurious_loops(w, euler_characteristic(np.argwhere(skel), skel.shape),
-                             lambda: count_cavities(mask))
+        _drop_spurious_loops(w, euler, cavities)
     with _timed(timings, "graph"):
         for _ in range(100):  # each pass removes something; stable after a few
             changed = False
@@ -92,7 +135,8 @@ def graph_from_skeleton(skel, mask, spacing=None, *, unit="um", prune=True, prun
                     min_branch_length=float(min_branch_length), merge_junctions=bool(merge_junctions),
                     tip_extension=bool(extend_tips), smoothing=float(smoothing),
                     skelmorph_version=__version__)
-        return _finish(w, spacing, normalise_unit(unit), mask.shape, smoothing, meta, mask)
+        return _finish(w, spacing, normalise_unit(unit), tuple(shape), smoothing, meta, mask,
+                       volumes)
 
 
 def skeleton_graph(mask, spacing=None, prune=True, *, unit="um", prune_factor=1.5,
@@ -215,8 +259,13 @@ def skeleton_graph(mask, spacing=None, prune=True, *, unit="um", prune_factor=1.
                                       "thinning_spacing": [x * scale for x in spacing],
                                       "thinning": method})
     # Report the source image's voxel size and shape, not the resampled ones.
+    return rescale_graph(graph, scale, source_spacing, source_shape)
+
+
+def rescale_graph(graph, scale, spacing, shape):
+    """A graph built in units of the finest voxel side, back in physical units."""
     return dataclasses.replace(
-        graph, spacing=source_spacing, shape=tuple(source_shape),
+        graph, spacing=tuple(spacing), shape=tuple(shape),
         nodes=graph.nodes * scale, node_radius=graph.node_radius * scale,
         points=graph.points * scale, point_radius=graph.point_radius * scale,
         edge_length=graph.edge_length * scale,

@@ -230,7 +230,7 @@ def _drop_spurious_loops(w, euler, cavities):
     return len(drop)
 
 
-def _finish(w, spacing, unit, shape, smoothing, meta, mask=None):
+def _finish(w, spacing, unit, shape, smoothing, meta, mask=None, volumes=None):
     """Drop nodes left without edges, flatten polylines, smooth them, measure lengths."""
     alive = (w.degree() > 0) | w.protected
     new_id = np.cumsum(alive) - 1
@@ -251,13 +251,13 @@ def _finish(w, spacing, unit, shape, smoothing, meta, mask=None):
     raw_points = points
     points = smooth_polylines(points, offsets, smoothing, closed=closed)
     edge_radius = None
-    if mask is not None:
+    if mask is not None or volumes is not None:
         # Leave out twice the node radius at junctions (where daughters still
         # overlap each other and the parent), once at tips.
         reach = node_r * np.where(degree >= 3, 2.0, 1.0)
         edge_radius = equivalent_radius(mask, spacing, raw_points, points, offsets,
                                         np.column_stack([reach[u], reach[v]]) if len(u)
-                                        else np.zeros((0, 2)))
+                                        else np.zeros((0, 2)), volumes=volumes)
     if closed.any():
         nodes = nodes.copy()
         nodes[u[closed]] = points[offsets[:-1][closed]]

@@ -22,7 +22,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-__all__ = ["equivalent_radius"]
+__all__ = ["equivalent_radius", "branch_volumes"]
 
 
 @njit(cache=True)
@@ -51,7 +51,7 @@ def _flood_labels(obj, labels, seeds, offsets, capacity):
                 tail += 1
 
 
-def equivalent_radius(mask, spacing, raw_points, points, offsets, end_radius):
+def equivalent_radius(mask, spacing, raw_points, points, offsets, end_radius, volumes=None):
     """Volume-equivalent radius of every branch.
 
     Parameters
@@ -67,14 +67,16 @@ def equivalent_radius(mask, spacing, raw_points, points, offsets, end_radius):
     end_radius : (E, 2) float array
         Node radius at the first and last point of each branch; points closer
         than that (along the branch) to an end are not the branch's inner part.
+    volumes : callable, optional
+        ``volumes(raw_points, seed_label, n_edges)`` -> volume per branch, in
+        place of :func:`branch_volumes` on ``mask`` (the chunked analysis
+        sums it over chunks).
 
     Returns
     -------
     (E,) float array, NaN where a branch has no inner part.
     """
-    mask = np.asarray(mask, bool)
     sp = np.asarray(spacing, float)
-    ndim = mask.ndim
     n_edges = len(offsets) - 1
     out = np.full(n_edges, np.nan)
     if n_edges == 0 or len(raw_points) == 0:
@@ -89,6 +91,43 @@ def equivalent_radius(mask, spacing, raw_points, points, offsets, end_radius):
     pos = np.arange(len(points)) - offsets[:-1][eid]
     last = pos == np.diff(offsets)[eid] - 1
     inner = (pos > 0) & ~last & (arc >= end_radius[eid, 0]) & (total - arc >= end_radius[eid, 1])
+    # A point on the inner part of a branch seeds that branch; any other seeds nobody.
+    label_of_point = np.where(inner, eid, -1)
+    if volumes is None:
+        volume = branch_volumes(mask, sp, raw_points, label_of_point, n_edges)
+    else:
+        volume = volumes(raw_points, label_of_point, n_edges)
+    # Length owned by the inner points: half of each adjacent step.
+    half = np.zeros(len(points))
+    half[:-1] += 0.5 * step[1:]
+    half += 0.5 * step
+    length = np.bincount(eid[inner], half[inner], minlength=n_edges)
+    ok = length > 0
+    if len(sp) == 3:
+        out[ok] = np.sqrt(volume[ok] / (np.pi * length[ok]))
+    else:
+        out[ok] = volume[ok] / (2.0 * length[ok])
+    out[ok & (volume == 0)] = np.nan
+    return out
+
+
+def branch_volumes(mask, spacing, raw_points, label_of_point, n_edges, count_from=0,
+                   count_to=None):
+    """Volume of the mask voxels nearest to each branch's seed points.
+
+    Every object voxel goes to the seed reached first by a face-neighbour
+    flood from all seeds at once; voxels of seeds labelled -1 (or claimed by
+    several branches) count for nobody.  Only voxels from index ``count_from``
+    up to (not including) ``count_to`` along the first axis are counted (a
+    chunk leaves its halo out).
+
+    Returns
+    -------
+    (n_edges,) float array, physical volume (area in 2D).
+    """
+    mask = np.asarray(mask, bool)
+    sp = np.asarray(spacing, float)
+    ndim = mask.ndim
     # Padded flat indices of every point's voxel.
     vox = np.rint(raw_points / sp).astype(np.int64)
     shape = np.asarray(mask.shape)
@@ -99,7 +138,6 @@ def equivalent_radius(mask, spacing, raw_points, points, offsets, end_radius):
         strides[a] = strides[a + 1] * pshape[a + 1]
     flat = (vox + 1) @ strides
     # A voxel in several branches' inner parts, or in any other role, claims for nobody.
-    label_of_point = np.where(inner, eid, -1)
     order = np.lexsort((label_of_point, flat))
     f_sorted, l_sorted = flat[order], label_of_point[order]
     first = np.r_[True, f_sorted[1:] != f_sorted[:-1]]
@@ -114,17 +152,9 @@ def equivalent_radius(mask, spacing, raw_points, points, offsets, end_radius):
     obj_seeded[seeds] = True  # a point off the mask (a merged node) still seeds
     offsets = np.concatenate([strides, -strides])
     _flood_labels(obj_seeded, labels, seeds, offsets, int(np.count_nonzero(obj_seeded)))
+    if count_from:
+        labels[:(count_from + 1) * strides[0]] = -2  # planes before count_from (and the pad)
+    if count_to is not None:
+        labels[(count_to + 1) * strides[0]:] = -2
     got = labels[obj & (labels >= 0)]
-    volume = np.bincount(got, minlength=n_edges).astype(float) * float(np.prod(sp))
-    # Length owned by the inner points: half of each adjacent step.
-    half = np.zeros(len(points))
-    half[:-1] += 0.5 * step[1:]
-    half += 0.5 * step
-    length = np.bincount(eid[inner], half[inner], minlength=n_edges)
-    ok = length > 0
-    if ndim == 3:
-        out[ok] = np.sqrt(volume[ok] / (np.pi * length[ok]))
-    else:
-        out[ok] = volume[ok] / (2.0 * length[ok])
-    out[ok & (volume == 0)] = np.nan
-    return out
+    return np.bincount(got, minlength=n_edges).astype(float) * float(np.prod(sp))

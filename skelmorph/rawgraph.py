@@ -97,19 +97,25 @@ class _Work:
 
 def _raw_graph(skel, mask, spacing, radius_method, timings, dist_sq=None):
     """Nodes and point-ordered edges straight from the centreline voxels."""
-    sp = np.asarray(spacing, float)
     with _timed(timings, "graph"):
         coords = np.argwhere(skel)
-        n = len(coords)
-        links = voxel_links(coords, skel.shape)
-        deg = np.bincount(links.ravel(), minlength=n)
     with _timed(timings, "radii"):
         if dist_sq is not None:
             vox_r = np.sqrt(dist_sq[tuple(coords.T)].astype(np.float64))
         else:
             vox_r = centreline_radius(mask, coords, spacing, method=radius_method)
+    return _raw_graph_of_voxels(coords, skel.shape, spacing, vox_r, timings)
+
+
+def _raw_graph_of_voxels(coords, shape, spacing, vox_r, timings):
+    """Nodes and point-ordered edges of centreline voxels ``coords`` (C order)
+    with radii ``vox_r``, in an array of ``shape``."""
+    sp = np.asarray(spacing, float)
     with _timed(timings, "graph"):
-        clique = small_cycle_voxels(coords, links, skel.shape)
+        n = len(coords)
+        links = voxel_links(coords, shape)
+        deg = np.bincount(links.ravel(), minlength=n)
+        clique = small_cycle_voxels(coords, links, shape)
         is_node = (deg != 2) | clique
         # Rings without any junction: promote one voxel per ring to an anchor node.
         path_links = links[~is_node[links[:, 0]] & ~is_node[links[:, 1]]]
@@ -156,7 +162,7 @@ def _raw_graph(skel, mask, spacing, radius_method, timings, dist_sq=None):
         protected = np.zeros(n_nodes, bool)
         protected[node_of_voxel[node_vox[deg[node_vox] == 0]]] = True
         loops_u, loops_pts, loops_rad = _cluster_tunnels(
-            coords, junction, node_of_voxel, links, pos_vox, vox_r, node_pos, node_r, skel.shape)
+            coords, junction, node_of_voxel, links, pos_vox, vox_r, node_pos, node_r, shape)
 
         # Path voxels: order every branch with one depth-first traversal.
         slab = np.flatnonzero(~is_node)
@@ -213,7 +219,7 @@ def _raw_graph(skel, mask, spacing, radius_method, timings, dist_sq=None):
         u_list, v_list = list(u_list) + loops_u, list(v_list) + loops_u
         pts_list, rad_list = list(pts_list) + loops_pts, list(rad_list) + loops_rad
     return _Work(node_pos, node_r, protected, u_list, v_list, pts_list, rad_list,
-                 skel.shape, spacing)
+                 shape, spacing)
 
 
 def _cluster_predecessors(n, jlinks, sources, pos_vox):
