@@ -349,55 +349,11 @@ def _stop_on_signals():
 LAST_SIGNAL = [None]
 
 
-def _die_with_parent():
-    """Worker initializer: ask the kernel to kill this worker when its parent dies
-    (Linux); let the parent alone handle Ctrl-C."""
-    signal.signal(signal.SIGINT, signal.SIG_IGN)
-    try:
-        import ctypes
-        libc = ctypes.CDLL("libc.so.6", use_errno=True)
-        libc.prctl(1, signal.SIGKILL)  # PR_SET_PDEATHSIG
-    except (OSError, AttributeError):  # not Linux
-        pass
-
-
 def _execute(todo, options, out, workers, scheduler, stop=None):
     """Yield results as samples finish, from this process, a pool or a Dask cluster."""
-    if not todo:
-        return
-    if scheduler is not None:
-        from distributed import Client, as_completed
-        client = scheduler if isinstance(scheduler, Client) else Client(scheduler)
-        try:
-            futures = [client.submit(_analyze_one, s, options, str(out), key, stats,
-                                     pure=False, key=f"skelmorph-{s.sample}-{uuid.uuid4().hex[:6]}")
-                       for s, key, stats in todo]
-            for fut in as_completed(futures):
-                yield fut.result()
-        finally:
-            if client is not scheduler:
-                client.close()
-        return
-    if workers <= 1:
-        for s, key, stats in todo:
-            yield _analyze_one(s, options, out, key, stats)
-        return
-    from concurrent.futures import ProcessPoolExecutor, as_completed
-    pool = ProcessPoolExecutor(max_workers=int(workers), initializer=_die_with_parent)
-    try:
-        futures = [pool.submit(_analyze_one, s, options, out, key, stats) for s, key, stats in todo]
-        for fut in as_completed(futures):
-            yield fut.result()
-    except BaseException:
-        # Stop now: drop queued samples and end the running ones (their
-        # temporary folders are cleaned by the next run).
-        workers_now = list((getattr(pool, "_processes", None) or {}).values())
-        pool.shutdown(wait=False, cancel_futures=True)
-        for proc in workers_now:
-            with contextlib.suppress(Exception):
-                proc.kill()
-        raise
-    pool.shutdown(wait=True)
+    from ..engine import execute
+    yield from execute(_analyze_one, [(s, options, str(out), key, stats) for s, key, stats in todo],
+                       workers=workers, scheduler=scheduler, name="skelmorph-sample")
 
 
 # ------------------------------------------------------------------ tables
