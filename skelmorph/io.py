@@ -411,7 +411,8 @@ def read_image(path, spacing=None, unit=None, channel=None):
 
     Supported: multi-page TIFF (3D) and single-page TIFF, PNG, JPEG (2D);
     ``.npy`` arrays; a folder of 2D slices, stacked in natural sort order
-    (``slice2`` before ``slice10``). Uncompressed TIFF and ``.npy`` files are
+    (``slice2`` before ``slice10``); an OME-Zarr store (its finest level,
+    see :mod:`skelmorph.volume`). Uncompressed TIFF and ``.npy`` files are
     memory-mapped rather than loaded.
 
     Parameters
@@ -451,6 +452,12 @@ def read_image(path, spacing=None, unit=None, channel=None):
         raise ImageReadError(f"cannot open {path}: {exc.strerror or exc}") from None
     if not regular:
         raise ImageReadError(f"{path} is not a regular file or folder (a device or a pipe?)")
+    from .volume import is_zarr_store
+    if is_zarr_store(path):  # read whole; large stores go through skelmorph.volume
+        from .volume import open_volume
+        vol = open_volume(path, spacing, unit)
+        check_declared_size(vol.shape, vol.dtype, f"OME-Zarr {path}")
+        return ImageData(check_image_array(vol.planes(0, vol.shape[0])), vol.spacing, vol.unit)
     try:
         array, file_spacing, file_unit, is_rgb = (_read_folder(path) if path.is_dir() else _read_file(path))
     except PermissionError:
@@ -465,7 +472,17 @@ def read_image(path, spacing=None, unit=None, channel=None):
     while array.ndim > 3 and array.shape[-1] == 1:
         array = array[..., 0]
     array = check_image_array(array)
-    ndim = array.ndim
+    spacing, unit = resolve_spacing(file_spacing, file_unit, spacing, unit, array.ndim, source)
+    return ImageData(array, spacing, unit)
+
+
+def resolve_spacing(file_spacing, file_unit, spacing, unit, ndim, source):
+    """The voxel size and unit to use: the caller's, else the file's, else 1.
+
+    ``file_spacing`` may hold ``None`` for an axis the file does not
+    calibrate (the slice distance of many TIFF stacks); it is then taken
+    equal to the x size, with a warning.  Returns ``(spacing, unit)``.
+    """
     if file_spacing is not None:
         file_spacing = tuple(file_spacing)[-ndim:]
     if spacing is not None:
@@ -473,19 +490,19 @@ def read_image(path, spacing=None, unit=None, channel=None):
         if file_spacing is not None and None not in file_spacing and not np.allclose(
                 spacing, file_spacing, rtol=1e-3):
             warnings.warn(f"{source}: spacing {spacing} given; the file says {file_spacing} "
-                          f"{normalise_unit(file_unit)}; using the given spacing", stacklevel=2)
-        return ImageData(array, spacing, normalise_unit(unit if unit is not None else file_unit))
+                          f"{normalise_unit(file_unit)}; using the given spacing", stacklevel=3)
+        return spacing, normalise_unit(unit if unit is not None else file_unit)
     if file_spacing is not None and None not in file_spacing:
-        return ImageData(array, validate_spacing(file_spacing, ndim), normalise_unit(unit or file_unit))
+        return validate_spacing(file_spacing, ndim), normalise_unit(unit or file_unit)
     if file_spacing is not None and None in file_spacing:
         warnings.warn(f"{source}: the file gives the in-plane pixel size but not the slice "
                       f"spacing; assuming it equals the in-plane x size. Give spacing to be sure.",
-                      stacklevel=2)
+                      stacklevel=3)
         filled = tuple(file_spacing[-1] if s is None else s for s in file_spacing)
-        return ImageData(array, validate_spacing(filled, ndim), normalise_unit(unit or file_unit))
+        return validate_spacing(filled, ndim), normalise_unit(unit or file_unit)
     warnings.warn(f"{source}: no voxel size in the file and none given; using 1 {normalise_unit(unit)} "
-                  f"per voxel. Give spacing (--spacing) for physical units.", stacklevel=2)
-    return ImageData(array, (1.0,) * ndim, normalise_unit(unit))
+                  f"per voxel. Give spacing (--spacing) for physical units.", stacklevel=3)
+    return (1.0,) * ndim, normalise_unit(unit)
 
 
 # --------------------------------------------------------------------------- writing
