@@ -39,7 +39,8 @@ def _parser():
                        description="Read an image, skeletonize it, build and measure its "
                                    "centreline graph, and write graph.graphml, graph.vtp, "
                                    "nodes.csv, branches.csv and summary.json. " + CAUTION_TEXT)
-    a.add_argument("image", help="TIFF/PNG/JPEG file, .npy array, or a folder of 2D slices")
+    a.add_argument("image", help="TIFF/PNG/JPEG file, .npy array, a folder of 2D slices, or "
+                                 "an OME-Zarr store")
     a.add_argument("--out", "-o", default=None, help="output folder (default: <image>-skelmorph)")
     a.add_argument("--spacing", type=float, nargs="+", metavar="S",
                    help="voxel size in (z) y x order, or one value; overrides the file")
@@ -49,6 +50,12 @@ def _parser():
                    help="also write report.html, a one-sample page with figures")
     from .options import add_analyze_arguments
     add_analyze_arguments(a)
+    big = a._action_groups[-1]  # 'large scans', from the options list
+    big.add_argument("--workers", type=int, default=1,
+                     help="slabs of a large scan: local worker processes (default 1)")
+    big.add_argument("--scheduler", default=None, metavar="ADDRESS",
+                     help="slabs of a large scan on a Dask cluster, e.g. tcp://host:8786 "
+                          "(shared file system)")
 
     f = sub.add_parser("phantom", help="write a synthetic structure with its ground truth",
                        description="Write a phantom as TIFF (with voxel size) and its "
@@ -114,7 +121,10 @@ def _cmd_analyze(args):
     from .pipeline import analyze
 
     out = Path(args.out) if args.out else Path(str(Path(args.image).with_suffix("")) + "-skelmorph")
+    if args.workers < 1:
+        raise SkelmorphError("--workers must be at least 1")
     result = analyze(args.image, spacing=args.spacing, unit=args.unit, out=out,
+                     workers=args.workers, scheduler=args.scheduler,
                      progress=not args.quiet, **options_from_cli(args))
     if args.report:
         from .report.html import write_sample_report

@@ -115,6 +115,17 @@ def _measures(v):
     return None
 
 
+def _memory(v):
+    if v is None:
+        return None
+    from .chunked import parse_memory
+    try:
+        parse_memory(v)
+    except InputError as exc:
+        return f"is not a size ({exc})"
+    return None
+
+
 @dataclass(frozen=True)
 class Option:
     """One analysis option: the keyword of :func:`skelmorph.analyze`, the key
@@ -246,6 +257,9 @@ ANALYZE_OPTIONS = (
            "of paths exceeds N (default 2e7)", _TREE,
            cli={"type": lambda v: int(float(v)), "metavar": "N"}),
     Option("figures", True, _boolean, "write the per-sample figures (PNG)", "output"),
+    Option("memory_limit", None, _memory, "3D scans larger than this in memory (e.g. 8GB, "
+           "500MB) are analysed in slabs read from the file; default half the memory "
+           "available", "large scans", cli={"metavar": "SIZE"}),
 )
 
 

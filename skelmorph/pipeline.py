@@ -139,7 +139,7 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
             thinning="ordered", root="thickest", tree="shortest", n_trees=1, filtration="radial", seed=0,
             root_point=None, root_face=None, n_radii=200, paths=None, measures=None,
             thickness_map=False, work_limit=900.0, max_paths=None, out=None, figures=True,
-            progress=False):
+            memory_limit=None, workers=1, scheduler=None, progress=False):
     """Analyse one image end to end.
 
     Parameters
@@ -196,6 +196,15 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
         ``branches.csv``, ``summary.json`` and, with tree descriptors,
         ``barcode.csv``, with profiles ``profiles.csv`` (and ``barcode.png``,
         ``profiles.png`` when ``figures``) into.
+    memory_limit : str or int, optional
+        A 3D scan read from a file whose analysis would need more memory
+        than this (``"8GB"``, ``"500MB"``, bytes; default half the memory
+        available) is analysed in slabs read on demand
+        (:mod:`skelmorph.chunked`), with the same graph.  Field measure sets,
+        ROIs, filters and clean-ups are not available in slabs yet.
+    workers, scheduler
+        Slabs run in ``workers`` local processes, or on a Dask cluster at
+        ``scheduler`` (``tcp://host:port``).
     progress : bool
         Show a progress bar over the stages on stderr.
 
@@ -220,7 +229,7 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
         n_trees=n_trees, filtration=filtration, seed=seed, root_point=root_point,
         root_face=root_face, n_radii=n_radii, paths=paths, measures=measures,
         thickness_map=thickness_map, figures=figures, work_limit=work_limit,
-        max_paths=max_paths), where="analysis options")
+        max_paths=max_paths, memory_limit=memory_limit), where="analysis options")
     tree = None if tree == "none" else tree
     _check_option_pairs(root, root_point, root_face, tree, n_trees)
     if out is not None:
@@ -228,66 +237,44 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
     sets = _measure_sets(measures)
     bar = Progress(6 + len(sets) + (out is not None), "analyze", enabled=progress)
     timings = {}
-    t0 = time.perf_counter()
     source = None
+    volume = None
     if isinstance(image, (str, Path)):
         source = str(image)
-        image = read_image(image, spacing=spacing, unit=unit, channel=channel)
-    if isinstance(image, ImageData):
-        array, spacing, unit = image
+        from .chunked import slab_volume
+        volume = slab_volume(image, spacing, unit, memory_limit, sets)
+        if volume is None:
+            t0 = time.perf_counter()
+            image = read_image(image, spacing=spacing, unit=unit, channel=channel)
+            timings["read"] = time.perf_counter() - t0
+    if volume is not None:
+        from .chunked import check_slab_options
+        check_slab_options(dict(channel=channel, roi=roi, smooth=smooth, enhance=enhance,
+                                hysteresis=hysteresis, min_object_size=min_object_size,
+                                max_hole_size=max_hole_size, thinning=thinning,
+                                measures=sets, thickness_map=thickness_map))
+        graph, summary, prep_warnings = _graph_in_slabs(
+            volume, out, threshold=threshold, dark=dark, label=label, prune=prune,
+            prune_factor=prune_factor, min_branch_length=min_branch_length,
+            merge_junctions=merge_junctions, extend_tips=extend_tips, smoothing=smoothing,
+            memory_limit=memory_limit, workers=workers, scheduler=scheduler, bar=bar,
+            timings=timings)
+        summary["source"] = source
+        for line in prep_warnings:
+            warnings.warn(line, SegmentationWarning, stacklevel=2)
+        extra = _field_measures([], graph, None, volume.spacing, volume.unit, None, False,
+                                timings, bar)
+        mask = None
     else:
-        array = check_image_array(image)
-        spacing = validate_spacing(1.0 if spacing is None else spacing, array.ndim)
-    unit = normalise_unit(unit)
-    _check_sets(sets, array.ndim)
-    timings["read"] = time.perf_counter() - t0
-    bar.update(note="read")
-    t0 = time.perf_counter()
-    prep = prepare_mask(array, spacing, roi=roi, threshold=threshold, dark=dark, smooth=smooth,
-                        enhance=enhance, scales=scales, hysteresis=hysteresis, label=label,
-                        min_object_size=min_object_size, max_hole_size=max_hole_size)
-    mask, roi_mask = prep.mask, prep.roi
-    if channel is not None:
-        prep.steps.insert(0, {"step": "colour channel", "channel": channel})
-    for step in prep.steps:  # every physical value with its unit
-        if step["step"] in ("gaussian smoothing", "vessel enhancement"):
-            step["unit"] = unit
-        elif step["step"] in ("speck removal", "hole filling", "region of interest"):
-            step["unit"] = f"{unit}^{array.ndim}"
-    timings["segment"] = time.perf_counter() - t0
-    bar.update(note="segmented")
-    graph = skeleton_graph(mask, spacing, prune=prune, unit=unit, prune_factor=prune_factor,
-                           min_branch_length=min_branch_length, merge_junctions=merge_junctions,
-                           extend_tips=extend_tips, smoothing=smoothing, method=thinning,
-                           timings=timings)
-    graph = _place(graph, prep.origin, spacing, array.shape)
-    bar.update(note="graph built")
-    t0 = time.perf_counter()
-    summary = summarize(graph)
-    from .quality import segmentation_warnings
-    warn = prep.warnings + segmentation_warnings(mask, graph, roi=roi_mask,
-                                                 image_mask=prep.image_mask)
-    inside = int(np.count_nonzero(roi_mask)) if roi_mask is not None else mask.size
-    prep.roi_info["volume_unit"] = f"{unit}^{array.ndim}"
-    summary.update(
-        source=source,
-        image_shape=list(array.shape),
-        volume_fraction=float(np.count_nonzero(mask) / inside),
-        roi=prep.roi_info,
-        preprocessing=prep.steps,
-        warnings=warn,
-        caution=CAUTION,
-    )
-    for line in warn:
-        warnings.warn(line, SegmentationWarning, stacklevel=2)
-    timings["measure"] = time.perf_counter() - t0
-    bar.update(note="measured")
-    extra = _field_measures(sets, graph, mask, spacing, unit, roi_mask, thickness_map,
-                            timings, bar, root_rule=(root, root_point, root_face))
-    for name, local in extra["maps"].items():  # maps of the ROI box, put back in the image
-        full = np.zeros(array.shape, local.dtype)
-        full[prep.box] = local
-        extra["maps"][name] = full
+        graph, summary, mask, extra = _graph_in_memory(
+            image, source, spacing, unit, sets, bar, timings, root, root_point, root_face,
+            thickness_map, prune=prune, prune_factor=prune_factor,
+            min_branch_length=min_branch_length, merge_junctions=merge_junctions,
+            extend_tips=extend_tips, smoothing=smoothing, thinning=thinning, roi=roi,
+            channel=channel,
+            seg=dict(threshold=threshold, dark=dark, smooth=smooth, enhance=enhance,
+                     scales=scales, hysteresis=hysteresis, label=label,
+                     min_object_size=min_object_size, max_hole_size=max_hole_size))
     result = AnalysisResult(graph=graph, summary=summary, mask=mask, timings=timings)
     cost = estimate_descriptor_seconds(graph, n_trees if tree is not None else 0, n_radii, paths)
     limit = MAX_PATHS if max_paths is None else max_paths
@@ -360,6 +347,108 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
         write_results(result, out, figures=figures)
         bar.update(note="written")
     return result
+
+
+def _graph_in_memory(image, source, spacing, unit, sets, bar, timings, root, root_point,
+                     root_face, thickness_map, *, prune, prune_factor, min_branch_length,
+                     merge_junctions, extend_tips, smoothing, thinning, roi, channel, seg):
+    """Segment, build the graph and run the field measures in memory."""
+    t0 = time.perf_counter()
+    if isinstance(image, ImageData):
+        array, spacing, unit = image
+    else:
+        array = check_image_array(image)
+        spacing = validate_spacing(1.0 if spacing is None else spacing, array.ndim)
+    unit = normalise_unit(unit)
+    _check_sets(sets, array.ndim)
+    timings["read"] = timings.get("read", 0.0) + time.perf_counter() - t0
+    bar.update(note="read")
+    t0 = time.perf_counter()
+    prep = prepare_mask(array, spacing, roi=roi, **seg)
+    mask, roi_mask = prep.mask, prep.roi
+    if channel is not None:
+        prep.steps.insert(0, {"step": "colour channel", "channel": channel})
+    for step in prep.steps:  # every physical value with its unit
+        if step["step"] in ("gaussian smoothing", "vessel enhancement"):
+            step["unit"] = unit
+        elif step["step"] in ("speck removal", "hole filling", "region of interest"):
+            step["unit"] = f"{unit}^{array.ndim}"
+    timings["segment"] = time.perf_counter() - t0
+    bar.update(note="segmented")
+    graph = skeleton_graph(mask, spacing, prune=prune, unit=unit, prune_factor=prune_factor,
+                           min_branch_length=min_branch_length, merge_junctions=merge_junctions,
+                           extend_tips=extend_tips, smoothing=smoothing, method=thinning,
+                           timings=timings)
+    graph = _place(graph, prep.origin, spacing, array.shape)
+    bar.update(note="graph built")
+    t0 = time.perf_counter()
+    summary = summarize(graph)
+    from .quality import segmentation_warnings
+    warn = prep.warnings + segmentation_warnings(mask, graph, roi=roi_mask,
+                                                 image_mask=prep.image_mask)
+    inside = int(np.count_nonzero(roi_mask)) if roi_mask is not None else mask.size
+    prep.roi_info["volume_unit"] = f"{unit}^{array.ndim}"
+    summary.update(
+        source=source,
+        image_shape=list(array.shape),
+        volume_fraction=float(np.count_nonzero(mask) / inside),
+        roi=prep.roi_info,
+        preprocessing=prep.steps,
+        warnings=warn,
+        caution=CAUTION,
+    )
+    for line in warn:
+        warnings.warn(line, SegmentationWarning, stacklevel=3)
+    timings["measure"] = time.perf_counter() - t0
+    bar.update(note="measured")
+    extra = _field_measures(sets, graph, mask, spacing, unit, roi_mask, thickness_map,
+                            timings, bar, root_rule=(root, root_point, root_face))
+    for name, local in extra["maps"].items():  # maps of the ROI box, put back in the image
+        full = np.zeros(array.shape, local.dtype)
+        full[prep.box] = local
+        extra["maps"][name] = full
+    summary.update(n_chunks=1, halo=0.0)
+    return graph, summary, mask, extra
+
+
+def _graph_in_slabs(volume, out, *, threshold, dark, label, prune, prune_factor,
+                    min_branch_length, merge_junctions, extend_tips, smoothing, memory_limit,
+                    workers, scheduler, bar, timings):
+    """Survey, thin in slabs and build the graph of a scan too large for memory."""
+    from .chunked import chunked_graph, default_memory_limit, parse_memory, survey, work_folder
+    t0 = time.perf_counter()
+    seg = survey(volume, threshold=threshold, dark=dark, label=label)
+    timings["read"] = time.perf_counter() - t0
+    bar.update(note="surveyed")
+    limit = parse_memory(memory_limit) if memory_limit is not None else default_memory_limit()
+    graph, info = chunked_graph(
+        volume, seg, memory_limit=limit, workdir=work_folder(out, volume.source),
+        workers=workers, scheduler=scheduler, timings=timings, prune=prune,
+        prune_factor=prune_factor, min_branch_length=min_branch_length,
+        merge_junctions=merge_junctions, extend_tips=extend_tips, smoothing=smoothing)
+    bar.update(note="graph built")
+    summary = summarize(graph)
+    n = int(np.prod(volume.shape, dtype=np.int64))
+    unit = volume.unit
+    steps = list(seg.steps)
+    steps[-1] = dict(steps[-1], foreground_fraction=info["foreground"] / n)
+    steps.append({"step": "analysed in slabs", "slabs": info["n_chunks"],
+                  "halo_planes": info["halo"], "memory_limit_bytes": limit,
+                  "read_as": volume.kind})
+    summary.update(
+        image_shape=list(volume.shape),
+        volume_fraction=info["foreground"] / n,
+        roi={"source": "whole image", "volume": n * float(np.prod(volume.spacing)),
+             "fraction_of_image": 1.0, "box": [[0, k] for k in volume.shape],
+             "volume_unit": f"{unit}^3"},
+        preprocessing=steps,
+        warnings=info["warnings"],
+        caution=CAUTION,
+        n_chunks=info["n_chunks"],
+        halo=info["halo"] * float(volume.spacing[0]),
+    )
+    bar.update(note="measured")
+    return graph, summary, info["warnings"]
 
 
 def _check_option_pairs(root, root_point, root_face, tree, n_trees):

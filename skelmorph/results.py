@@ -133,6 +133,9 @@ _LIST = [
     _m("log_spanning_tree_count", "index", "1", "natural log of the number of spanning trees "
        "of the largest component (Kirchhoff's theorem)"),
     _m("tree_cuts", "count", "1", "branches cut to make the spanning tree (its loops)"),
+    _m("n_chunks", "count", "1", "slabs the volume was analysed in (1 when whole in memory)"),
+    _m("halo", "length", "{u}", "depth of the extra planes each slab was read with (0 when "
+       "whole in memory)"),
     _m("barcode_n_bars", "count", "1", "bars of the elder-rule barcode"),
     _m("barcode_total_persistence", "length", "{u}", "sum of bar lengths"),
     _m("barcode_max_persistence", "length", "{u}", "longest bar"),
@@ -157,7 +160,8 @@ MEASURES = {m.key: m for m in _LIST}
 
 #: Keys that record how a sample was processed, not its structure.
 PROCESSING_KEYS = frozenset({"root_node", "n_trees", "tree_cuts", "thickness_lattice_step",
-                             "separation_lattice_step", "TV", "lamina_area"})
+                             "separation_lattice_step", "TV", "lamina_area", "n_chunks",
+                             "halo"})
 
 _PATHS = re.compile(r"^paths_(\d+)_edges$")
 

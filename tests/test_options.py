@@ -11,7 +11,7 @@ from skelmorph.cohort.run import load_options
 from skelmorph.errors import SkelmorphError
 from skelmorph.options import ANALYZE_OPTIONS, options_from_cli, validate_options
 
-NOT_OPTIONS = {"image", "spacing", "unit", "out", "progress"}
+NOT_OPTIONS = {"image", "spacing", "unit", "out", "progress", "workers", "scheduler"}
 
 
 def _analyze_flags():

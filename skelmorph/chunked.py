@@ -1,0 +1,603 @@
+"""Analysing a 3D scan larger than memory in overlapping slabs.
+
+The volume (:mod:`skelmorph.volume`) is cut into slabs of whole planes
+along the first axis.  Each slab is read with a *halo* of extra planes on
+both sides, segmented, given its exact distance map and thinned exactly as
+the whole volume would be (:mod:`skelmorph.thinning`); only the centreline
+voxels of its own planes (its *core*) are kept, with their distance to the
+background.  The graph is then built once from the kept voxels
+(:func:`skelmorph.build.graph_from_voxels`), so no graph is ever stitched
+from parts: junctions and loops that a slab face cuts through come out
+whole.
+
+Why the slabs equal the whole volume
+    Distance map: a core voxel's distance is exact when its nearest
+    background voxel lies in the slab, which holds when the halo is deeper
+    than the largest distance in the core (checked per slab).
+    Thinning: deletions follow the distance order, and within one distance
+    bin a fixed sweep order that depends only on positions relative to
+    16-plane boundaries (twice the thinning's parallel slab), so slabs start
+    on such boundaries.  A voxel's fate depends on what happened near it
+    before; with a halo of ``HALO_RADII`` times the largest radius (and at
+    least 16 planes) the core is thinned voxel for voxel as in the whole
+    volume (tested on foams, thick foams, tori and bifurcations cut through
+    junctions and loops).  Each run checks it: every slab also keeps its
+    centreline in 16 planes past its core on both sides, which must equal
+    the neighbour's core there; a seam that differs is recomputed with twice
+    the halo, and one that still differs is reported in the warnings.
+Memory
+    One slab with its halo takes about ``BYTES_PER_VOXEL`` bytes per voxel
+    (mask, distance map, thinning flags, sort order); the memory limit sets
+    the slab depth.  The kept centreline (a few percent of the voxels) and
+    the graph are held whole.
+Resuming
+    Every slab's result is a plain ``.npz`` file in a work folder, written
+    atomically and named after what determines it; a killed run resumes
+    from the slabs it finished.
+
+Segmentation in slabs is per voxel: binary volumes, label maps
+(``label``) and thresholds (given, or Otsu's from a histogram streamed
+over the slabs).  Filters and clean-ups that need neighbourhoods
+(smoothing, vessel enhancement, hysteresis, speck removal, hole filling)
+and regions of interest are not available in slabs yet.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+import os
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from .errors import InputError
+from .io import _available_memory, atomic_path
+
+__all__ = ["parse_memory", "plan_slabs", "Segmenter", "survey", "chunked_skeleton",
+           "chunked_cavities", "chunked_branch_volumes", "SLAB_ALIGN", "BYTES_PER_VOXEL"]
+
+#: Slabs start on multiples of this many planes (twice the thinning's slab),
+#: so that the thinning's sweep order is the same in a slab as in the whole.
+SLAB_ALIGN = 16
+#: Working memory of one slab per voxel (input, mask, float32 distances,
+#: thinning flags and sort order); measured by ``scripts/bench.py --only chunks``.
+BYTES_PER_VOXEL = 16
+#: Halo depth in largest radii (see the module docstring).
+HALO_RADII = 4
+#: First halo tried, planes (enough for radii up to 7 voxels).
+DEFAULT_HALO = 32
+#: Planes past the core on each side compared with the neighbour's core.
+SEAM_PLANES = 16
+#: Default memory limit: this fraction of the memory available at start.
+DEFAULT_MEMORY_FRACTION = 0.5
+
+_UNITS = {"": 1, "b": 1, "k": 1e3, "kb": 1e3, "m": 1e6, "mb": 1e6, "g": 1e9, "gb": 1e9,
+          "t": 1e12, "tb": 1e12, "kib": 2**10, "mib": 2**20, "gib": 2**30, "tib": 2**40}
+
+
+def parse_memory(value):
+    """Bytes from ``8GB``, ``40MB``, ``1.5GiB`` or a number of bytes.
+
+    >>> parse_memory("8GB"), parse_memory("40 MiB"), parse_memory(1e6)
+    (8000000000, 41943040, 1000000)
+    """
+    if isinstance(value, (int, float)) and not isinstance(value, bool):
+        number, unit = float(value), ""
+    else:
+        m = re.fullmatch(r"\s*([0-9]*\.?[0-9]+(?:[eE][+-]?[0-9]+)?)\s*([A-Za-z]*)\s*", str(value))
+        if not m or m.group(2).lower() not in _UNITS:
+            raise InputError(f"memory limit {value!r} is not a size; write e.g. 8GB, 500MB or "
+                             "1.5GiB")
+        number, unit = float(m.group(1)), m.group(2).lower()
+    size = number * _UNITS[unit]
+    if not math.isfinite(size) or size <= 0:
+        raise InputError(f"memory limit {value!r} must be a positive size")
+    return int(size)
+
+
+def default_memory_limit():
+    """Half the memory available now (all of it is never ours to take)."""
+    have = _available_memory()
+    return int(DEFAULT_MEMORY_FRACTION * have) if have else 8 * 10**9
+
+
+def _align_up(n):
+    return int(math.ceil(n / SLAB_ALIGN)) * SLAB_ALIGN
+
+
+def plan_slabs(shape, memory_limit, halo):
+    """Slab cores ``[(a, b), ...]`` along the first axis for a memory limit.
+
+    Parameters
+    ----------
+    shape : tuple of 3 ints
+    memory_limit : int, bytes
+    halo : int, planes on each side (a multiple of ``SLAB_ALIGN``)
+
+    Raises
+    ------
+    InputError
+        When not even one aligned core of ``SLAB_ALIGN`` planes with its halo
+        fits in the limit.
+    """
+    nz = int(shape[0])
+    plane = float(shape[1]) * float(shape[2]) * BYTES_PER_VOXEL
+    fit = int(memory_limit // plane)  # planes that fit
+    core = (fit - 2 * halo) // SLAB_ALIGN * SLAB_ALIGN
+    if core < SLAB_ALIGN and fit < nz:
+        need = (2 * halo + SLAB_ALIGN) * plane
+        raise InputError(f"a volume of {tuple(shape)} voxels needs at least {need / 1e9:.2g} GB "
+                         f"per slab ({SLAB_ALIGN} planes and a halo of {halo} on each side); "
+                         f"the memory limit is {memory_limit / 1e9:.2g} GB")
+    if core >= nz or fit >= nz:
+        return [(0, nz)]
+    return [(a, min(a + core, nz)) for a in range(0, nz, core)]
+
+
+# ----------------------------------------------------------------------------- segmentation
+
+@dataclass
+class Segmenter:
+    """Per-voxel segmentation of planes: ``mode`` is 'binary' (values above
+    ``value`` are structure), 'label' (voxels equal to ``value``) or
+    'threshold' (above ``value``, below with ``dark``)."""
+
+    mode: str
+    value: float
+    dark: bool = False
+    steps: list = field(default_factory=list)
+
+    def __call__(self, planes):
+        if self.mode == "label":
+            mask = planes == self.value
+        elif self.mode == "binary":
+            mask = planes > self.value
+            if self.dark:
+                mask = ~mask
+        else:
+            mask = planes < self.value if self.dark else planes > self.value
+        return mask
+
+    def key(self):
+        return [self.mode, float(self.value), bool(self.dark)]
+
+
+def _histogram_otsu(counts, centres):
+    from skimage.filters import threshold_otsu
+    return float(threshold_otsu(hist=(counts, centres)))
+
+
+def survey(volume, *, threshold=None, dark=False, label=None, slab_planes=32, progress=None):
+    """One streamed pass that decides the per-voxel segmentation of a volume.
+
+    Binary volumes need no threshold (the larger value is the structure); a
+    label needs none either; a grey volume without ``threshold`` gets
+    Otsu's threshold from its histogram (256 bins between its extremes, or
+    exact integer bins for 8- and 16-bit data).
+    """
+    if label is not None:
+        if volume.dtype.kind not in "iub":
+            raise InputError(f"--label needs an integer label image; this one is {volume.dtype}")
+        return Segmenter("label", label, False, [{"step": "label", "value": int(label)}])
+    nz = volume.shape[0]
+    lo = hi = None
+    values = set()
+    binary = True
+    small_int = volume.dtype.kind in "ub" and volume.dtype.itemsize <= 2
+    counts = np.zeros(2 ** (8 * volume.dtype.itemsize) if small_int else 0, np.int64)
+    for a in range(0, nz, slab_planes):
+        s = volume.planes(a, min(a + slab_planes, nz))
+        if s.dtype.kind == "f" and not np.isfinite(s).all():
+            raise InputError(f"{volume.source}: the image holds NaN or infinite values "
+                             f"(planes {a}-{min(a + slab_planes, nz)})")
+        smin, smax = s.min(), s.max()
+        lo = smin if lo is None else min(lo, smin)
+        hi = smax if hi is None else max(hi, smax)
+        if binary:
+            if smin == smax:
+                values.add(smin.item())
+            elif np.all((s == smin) | (s == smax)):
+                values.update((smin.item(), smax.item()))
+            else:
+                binary = False
+            binary &= len(values) <= 2
+        if small_int and threshold is None:
+            counts += np.bincount(s.ravel().view(np.uint8 if s.dtype == bool else s.dtype),
+                                  minlength=counts.size)
+        if progress is not None:
+            progress.update(note="survey")
+    if binary:
+        if lo == hi:
+            raise InputError("the mask is empty (no foreground voxels); check the threshold "
+                             "or whether the structure is dark on a bright background (--dark)"
+                             if not hi else
+                             "the mask is all foreground (no background voxels): nothing to "
+                             "skeletonize; check the threshold or crop to the structure")
+        return Segmenter("binary", float(lo), dark,
+                         [{"step": "binary input", "structure": "low value" if dark
+                           else "high value"}])
+    if threshold is not None:
+        return Segmenter("threshold", float(threshold), dark,
+                         [{"step": "threshold", "value": float(threshold), "method": "given",
+                           "structure": "below" if dark else "above"}])
+    if not small_int:  # a second pass with bins between the extremes
+        edges = np.linspace(float(lo), float(hi), 257)
+        counts = np.zeros(256, np.int64)
+        for a in range(0, nz, slab_planes):
+            s = volume.planes(a, min(a + slab_planes, nz))
+            counts += np.histogram(s, bins=edges)[0]
+        centres = 0.5 * (edges[1:] + edges[:-1])
+    else:
+        centres = np.arange(counts.size, dtype=float)
+        keep = slice(int(lo), int(hi) + 1)
+        counts, centres = counts[keep], centres[keep]
+    t = _histogram_otsu(counts, centres)
+    return Segmenter("threshold", t, dark, [{"step": "threshold", "value": t,
+                                             "method": "Otsu (streamed histogram)",
+                                             "structure": "below" if dark else "above"}])
+
+
+# ----------------------------------------------------------------------------- slab work
+
+def _slab_extent(a, b, halo, nz):
+    return max(0, a - halo), min(nz, b + halo)
+
+
+def _task_key(volume, seg, spacing, a, b, halo):
+    text = json.dumps([volume.source, list(volume.shape), str(volume.dtype), list(spacing),
+                       seg.key(), a, b, halo, SLAB_ALIGN, HALO_RADII])
+    return hashlib.sha1(text.encode()).hexdigest()[:16]
+
+
+def _flat(coords_local, lo, shape):
+    """Flat indices in the whole volume of (z, y, x) voxel indices of a slab from ``lo``."""
+    z = coords_local[:, 0].astype(np.int64) + lo
+    return (z * shape[1] + coords_local[:, 1]) * shape[2] + coords_local[:, 2]
+
+
+def slab_task(volume, seg, spacing, a, b, halo, memory_limit, workdir):
+    """Centreline of one slab core; writes and returns the path of its ``.npz``.
+
+    ``spacing`` is in units of the finest voxel side.  The halo grows (to a
+    multiple of ``SLAB_ALIGN``) when the core holds structures too thick
+    for it; when the memory limit does not allow that, nothing is computed
+    and ``{"need": halo}`` is returned instead.
+    """
+    from .thinning import distance_map_sq, thin
+
+    nz = volume.shape[0]
+    path = Path(workdir) / f"slab-{a:06d}-{_task_key(volume, seg, spacing, a, b, halo)}.npz"
+    if path.exists():
+        try:
+            with np.load(path) as z:
+                if int(z["a"]) == a:
+                    return str(path)
+        except Exception:  # noqa: BLE001 - a damaged file is redone
+            pass
+    plane_bytes = float(volume.shape[1]) * volume.shape[2] * BYTES_PER_VOXEL
+    while True:
+        lo, hi = _slab_extent(a, b, halo, nz)
+        mask = seg(volume.planes(lo, hi))
+        dsq = distance_map_sq(mask, spacing)
+        core = dsq[a - lo:b - lo]
+        r_max = float(np.sqrt(core.max())) if core.size else 0.0
+        need = _align_up(max(SLAB_ALIGN, (HALO_RADII * r_max + 2) / spacing[0])) \
+            if np.isfinite(r_max) else 2 * halo
+        if need <= halo or (lo == 0 and hi == nz):
+            break
+        del mask, dsq, core
+        if (b - a + 2 * need) * plane_bytes > memory_limit:
+            return {"need": need}  # the caller plans thinner slabs
+        halo = need
+    n_fg = int(np.count_nonzero(mask[a - lo:b - lo]))
+    skel = thin(mask, spacing, dsq=dsq)
+    del mask
+    coords = np.argwhere(skel)
+    z = coords[:, 0] + lo
+    in_core = (z >= a) & (z < b)
+    before = (z >= a - SEAM_PLANES) & (z < a)
+    after = (z >= b) & (z < b + SEAM_PLANES)
+    dsq_core = dsq[tuple(coords[in_core].T)]  # float32, as in the whole volume
+    shape = volume.shape
+    with atomic_path(path) as tmp:
+        with open(tmp, "wb") as fh:
+            np.savez(fh, a=a, b=b, lo=lo, hi=hi, halo=halo, r_max=r_max, n_fg=n_fg,
+                     flat=_flat(coords[in_core], lo, shape), dsq=dsq_core,
+                     before=_flat(coords[before], lo, shape),
+                     after=_flat(coords[after], lo, shape))
+    return str(path)
+
+
+def _seam_mismatches(results, slabs):
+    """Seams (index of the slab above) where a slab's centreline past its core
+    differs from its neighbour's core."""
+    bad = []
+    for k in range(len(slabs) - 1):
+        up, down = results[k], results[k + 1]
+        b = slabs[k][1]
+        plane = int(np.prod(up["shape"][1:]))
+        down_head = down["flat"][down["flat"] < (b + SEAM_PLANES) * plane]
+        up_tail = up["flat"][up["flat"] >= (b - SEAM_PLANES) * plane]
+        if not (np.array_equal(up["after"], down_head) and np.array_equal(down["before"], up_tail)):
+            bad.append(k + 1)
+    return bad
+
+
+def _run_slabs(volume, seg, spacing, slabs, halo, memory_limit, workdir, workers, scheduler,
+               progress):
+    """Run every slab task; their results by core start, and the halos asked
+    for by slabs that did not fit."""
+    from .engine import execute
+
+    tasks = [(volume, seg, tuple(spacing), a, b, halo, memory_limit, str(workdir))
+             for a, b in slabs]
+    results, needs = {}, []
+    for out in execute(slab_task, tasks, workers=workers, scheduler=scheduler,
+                       name="skelmorph-slab"):
+        if isinstance(out, dict):
+            needs.append(out["need"])
+            continue
+        with np.load(out) as z:
+            r = {k: z[k] for k in z.files}
+        r["shape"] = volume.shape
+        results[int(r["a"])] = r
+        if progress is not None:
+            progress.update(note=f"slab {int(r['a'])}-{int(r['b'])}")
+    return results, needs
+
+
+@dataclass
+class ChunkedSkeleton:
+    """Centreline voxels of a volume thinned in slabs."""
+
+    coords: np.ndarray  # (n, 3) int64, C order
+    radii: np.ndarray  # (n,) float64, distance to background (finest-voxel units)
+    foreground: int  # voxels of the structure
+    slabs: list  # [(a, b)] cores
+    halo: int  # largest halo used, planes
+    seam_warnings: list
+
+
+def chunked_skeleton(volume, seg, spacing, *, memory_limit, workdir, halo=None, workers=1,
+                     scheduler=None, progress=None):
+    """Thin a volume slab by slab (see the module docstring).
+
+    Parameters
+    ----------
+    volume : skelmorph.volume.Volume
+    seg : Segmenter
+    spacing : tuple of float
+        Voxel size in units of the finest voxel side.
+    memory_limit : int, bytes
+    workdir : path
+        Folder for the slab files (kept for resuming).
+    halo : int, optional
+        Initial halo in planes (default ``SLAB_ALIGN``; it grows as needed).
+    workers, scheduler
+        Local processes, or a Dask scheduler address (see :mod:`skelmorph.engine`).
+    """
+    Path(workdir).mkdir(parents=True, exist_ok=True)
+    halo = _align_up(halo or DEFAULT_HALO)
+    seam_warnings = []
+    for attempt in range(3):
+        while True:  # plan; plan again with a deeper halo if a slab asks for one
+            slabs = plan_slabs(volume.shape, memory_limit, halo)
+            results, needs = _run_slabs(volume, seg, spacing, slabs, halo, memory_limit,
+                                        workdir, workers, scheduler, progress)
+            if not needs:
+                break
+            halo = max(needs)
+        bad = _seam_mismatches([results[a] for a, _ in slabs], slabs)
+        if not bad:
+            break
+        deeper = 2 * max(int(r["halo"]) for r in results.values())
+        try:
+            if attempt < 2:
+                plan_slabs(volume.shape, memory_limit, deeper)
+                halo = deeper
+                continue
+        except InputError:
+            pass
+        seam_warnings = [f"the centreline differs across the slab face at plane "
+                         f"{slabs[k][0]} with a halo of {halo} planes; branches there may be "
+                         "cut or doubled (a larger --memory-limit allows a deeper halo)"
+                         for k in bad]
+        break
+    ordered = [results[a] for a, _ in slabs]
+    flat = np.concatenate([r["flat"] for r in ordered])
+    radii = np.sqrt(np.concatenate([r["dsq"] for r in ordered]).astype(np.float64))
+    coords = np.column_stack(np.unravel_index(flat, volume.shape)).astype(np.int64)
+    return ChunkedSkeleton(coords, radii, int(sum(int(r["n_fg"]) for r in ordered)), slabs,
+                           int(max(int(r["halo"]) for r in ordered)), seam_warnings)
+
+
+# ----------------------------------------------------------------------------- other passes
+
+def chunked_cavities(volume, seg, slabs):
+    """Enclosed background components of the segmented volume, counted slab
+    by slab: face-connected labels in each core, joined across slab faces
+    with a union-find, and those that touch the volume's faces left out
+    (as :func:`skelmorph.segment.count_cavities`)."""
+    from scipy import ndimage as ndi
+
+    parent = [0]  # label 0 = structure
+    touches = [True]
+
+    def find(i):
+        while parent[i] != i:
+            parent[i] = parent[parent[i]]
+            i = parent[i]
+        return i
+
+    nz = volume.shape[0]
+    prev_last = None
+    for a, b in slabs:
+        bg = ~seg(volume.planes(a, b))
+        labels, n = ndi.label(bg)
+        base = len(parent) - 1
+        parent.extend(range(base + 1, base + n + 1))
+        edge = np.zeros(n + 1, bool)
+        for axis, index in ((1, 0), (1, -1), (2, 0), (2, -1)):
+            edge[np.unique(np.take(labels, index, axis=axis))] = True
+        if a == 0:
+            edge[np.unique(labels[0])] = True
+        if b == nz:
+            edge[np.unique(labels[-1])] = True
+        touches.extend(edge[1:].tolist())
+        glob = np.where(labels > 0, labels + base, 0)
+        if prev_last is not None:
+            both = (prev_last > 0) & (glob[0] > 0)
+            pairs = np.unique(np.column_stack([prev_last[both], glob[0][both]]), axis=0)
+            for i, j in pairs.tolist():
+                ri, rj = find(i), find(j)
+                if ri != rj:
+                    parent[rj] = ri
+                    touches[ri] = touches[ri] or touches[rj]
+        prev_last = glob[-1].copy()
+    roots = {find(i) for i in range(1, len(parent))}
+    return sum(1 for r in roots if not touches[r])
+
+
+def chunked_branch_volumes(volume, seg, spacing, slabs, halo):
+    """A ``volumes`` callable for :func:`skelmorph.radius.equivalent_radius`:
+    each branch's voxels counted slab by slab, every slab flooded with its
+    halo so that voxels near a face go to the same branch as in the whole."""
+    from .radius import branch_volumes
+
+    sp = np.asarray(spacing, float)
+
+    def volumes(raw_points, label_of_point, n_edges):
+        total = np.zeros(n_edges)
+        zidx = np.rint(raw_points[:, 0] / sp[0]).astype(np.int64)
+        nz = volume.shape[0]
+        for a, b in slabs:
+            lo, hi = _slab_extent(a, b, halo, nz)
+            pick = (zidx >= lo) & (zidx < hi)
+            mask = seg(volume.planes(lo, hi))
+            shift = np.zeros(raw_points.shape[1])
+            shift[0] = lo * sp[0]
+            total += branch_volumes(mask, sp, raw_points[pick] - shift, label_of_point[pick],
+                                    n_edges, count_from=a - lo, count_to=b - lo)
+        return total
+    return volumes
+
+
+#: Working memory of the whole analysis in memory, bytes per voxel: the
+#: graph alone, and with field measures (measured on foams by
+#: ``scripts/bench.py --only memory``; rounded up).
+IN_MEMORY_BYTES_PER_VOXEL = (24, 40)
+
+
+def slab_volume(path, spacing, unit, memory_limit, sets):
+    """The volume at ``path`` when it is to be analysed in slabs, else None.
+
+    A 3D TIFF, ``.npy``, slice folder or OME-Zarr store goes to slabs when
+    its analysis in memory would need more than the memory limit.
+    """
+    import warnings
+
+    from .errors import SkelmorphError
+    from .volume import is_zarr_store, open_volume
+
+    path = Path(path)
+    try:
+        regular = path.is_dir() or (path.is_file() and path.suffix.lower() in
+                                    (".tif", ".tiff", ".npy"))
+    except OSError:
+        regular = False
+    if not regular:  # read_image says why (a pipe, a device, a 2D format)
+        return None
+    with warnings.catch_warnings():  # read_image or the second open says it
+        warnings.simplefilter("ignore")
+        try:
+            vol = open_volume(path, spacing, unit)
+        except SkelmorphError:
+            if is_zarr_store(path):
+                raise
+            return None  # read_image gives the reason, or reads a 2D image
+    limit = parse_memory(memory_limit) if memory_limit is not None else default_memory_limit()
+    need = float(np.prod(vol.shape, dtype=np.float64)) * IN_MEMORY_BYTES_PER_VOXEL[bool(sets)]
+    if need <= limit:
+        return None
+    return open_volume(path, spacing, unit)
+
+
+#: Options that need more than one voxel at a time, with their flags.
+_NOT_IN_SLABS = {"channel": "--channel", "roi": "--roi", "smooth": "--smooth",
+                 "enhance": "--enhance", "hysteresis": "--hysteresis",
+                 "min_object_size": "--min-object-size", "max_hole_size": "--max-hole-size",
+                 "measures": "--measures", "thickness_map": "--thickness-map"}
+
+
+def check_slab_options(options):
+    """Refuse, in one line, an option that the analysis in slabs cannot honour."""
+    for name, flag in _NOT_IN_SLABS.items():
+        value = options.get(name)
+        if value not in (None, False, [], ()):
+            raise InputError(f"this scan is analysed in slabs (in memory it would need more "
+                             f"than the memory limit) and {flag} is not available in slabs "
+                             "yet; crop or downsample the scan, or raise --memory-limit")
+    if options.get("thinning", "ordered") != "ordered":
+        raise InputError("this scan is analysed in slabs, which uses skelmorph's own thinning; "
+                         "--thinning lee/zhang needs the whole scan in memory")
+
+
+def work_folder(out, source):
+    """Where slab files go: ``OUT/.slabs`` or a folder beside the temporary directory."""
+    if out is not None:
+        return Path(out) / ".slabs"
+    import tempfile
+    tag = hashlib.sha1(str(source).encode()).hexdigest()[:10]
+    return Path(tempfile.gettempdir()) / f"skelmorph-slabs-{tag}-{os.getuid()}"
+
+
+def chunked_graph(volume, seg, *, memory_limit, workdir, halo=None, workers=1, scheduler=None,
+                  progress=None, timings=None, unit=None, prune=True, prune_factor=1.5,
+                  min_branch_length=0.0, merge_junctions=True, extend_tips=False, smoothing=2.0):
+    """The centreline graph of a volume analysed in slabs.
+
+    Equal to :func:`skelmorph.skeleton_graph` of the whole segmented volume
+    (same thinning voxel for voxel, same graph steps; branch volumes for the
+    equivalent radii are counted per slab with the same halo).
+
+    Returns
+    -------
+    graph : SkeletonGraph
+    info : dict
+        ``foreground`` (voxels), ``n_chunks``, ``halo`` (planes) and
+        ``warnings``.
+    """
+    import time
+
+    from .build import graph_from_voxels, rescale_graph
+
+    t0 = time.perf_counter()
+    scale = min(volume.spacing)
+    spacing = tuple(s / scale for s in volume.spacing)
+    cs = chunked_skeleton(volume, seg, spacing, memory_limit=memory_limit, workdir=workdir,
+                          halo=halo, workers=workers, scheduler=scheduler, progress=progress)
+    total = int(np.prod(volume.shape, dtype=np.int64))
+    if cs.foreground == 0:
+        raise InputError("the mask is empty (no foreground voxels); check the threshold or "
+                         "whether the structure is dark on a bright background (--dark)")
+    if cs.foreground == total:
+        raise InputError("the mask is all foreground (no background voxels): nothing to "
+                         "skeletonize; check the threshold or crop to the structure")
+    if timings is not None:
+        timings["skeletonize"] = time.perf_counter() - t0
+    graph = graph_from_voxels(
+        cs.coords, cs.radii, volume.shape, spacing,
+        cavities=lambda: chunked_cavities(volume, seg, cs.slabs),
+        volumes=chunked_branch_volumes(volume, seg, spacing, cs.slabs, cs.halo),
+        unit=volume.unit if unit is None else unit, prune=prune, prune_factor=prune_factor,
+        min_branch_length=min_branch_length / scale, merge_junctions=merge_junctions,
+        extend_tips=extend_tips, smoothing=smoothing, timings=timings,
+        meta={"resampled_isotropic": False, "thinning_spacing": list(volume.spacing),
+              "thinning": "ordered", "n_chunks": len(cs.slabs), "halo_planes": cs.halo})
+    graph = rescale_graph(graph, scale, volume.spacing, volume.shape)
+    return graph, {"foreground": cs.foreground, "n_chunks": len(cs.slabs), "halo": cs.halo,
+                   "warnings": cs.seam_warnings}

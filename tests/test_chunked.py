@@ -1,0 +1,232 @@
+"""Analysis in slabs (skelmorph.chunked) against the whole volume in memory,
+and the readers of large scans (skelmorph.volume).
+
+The reference is skelmorph's own in-memory analysis of the same volume:
+the slabs must give the same centreline voxel for voxel and the same graph.
+The shapes are chosen so that slab faces cut through junction clusters and
+loops (foams, a torus lying across the faces) with anisotropic voxels and
+with structures thick enough to make the halo grow.
+"""
+
+import json
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+import tifffile
+
+import skelmorph as sm
+from skelmorph import chunked
+from skelmorph.chunked import (chunked_cavities, chunked_graph, chunked_skeleton, parse_memory,
+                               plan_slabs, survey)
+from skelmorph.errors import ImageReadError, InputError
+from skelmorph.io import write_tiff
+from skelmorph.phantoms import foam, torus
+from skelmorph.segment import count_cavities
+from skelmorph.thinning import thin
+from skelmorph.volume import ArrayVolume, open_volume, write_ome_zarr
+
+
+def _planes_limit(shape, planes):
+    """A memory limit that lets a slab hold ``planes`` planes."""
+    return int(shape[1] * shape[2] * chunked.BYTES_PER_VOXEL * planes)
+
+
+CASES = {
+    # radius 6: junction blobs 18 voxels wide; the halo must grow from 32 to 48
+    "thick foam": (lambda: foam(size=160.0, cell=24.0, rod_radius=6.0, seed=1), 130),
+    "anisotropic foam": (lambda: foam(size=160.0, cell=16.0, rod_radius=2.5, seed=3,
+                                      spacing=(1.6, 1.0, 1.0)), 90),
+    "thin foam": (lambda: foam(size=128.0, cell=12.0, rod_radius=1.5, seed=5), 80),
+}
+
+
+@pytest.fixture(scope="module", params=sorted(CASES))
+def case(request):
+    make, planes = CASES[request.param]
+    ph = make()
+    vol = ArrayVolume(ph.mask.astype(np.uint8), tuple(ph.spacing), "um")
+    return ph, vol, _planes_limit(ph.mask.shape, planes)
+
+
+def test_slabs_thin_voxel_for_voxel_like_the_whole(case, tmp_path):
+    ph, vol, limit = case
+    sp = tuple(np.asarray(ph.spacing) / min(ph.spacing))
+    cs = chunked_skeleton(vol, survey(vol), sp, memory_limit=limit, workdir=tmp_path)
+    assert len(cs.slabs) >= 3  # faces cut through the structure
+    assert cs.seam_warnings == []
+    np.testing.assert_array_equal(cs.coords, np.argwhere(thin(ph.mask, sp)))
+    assert cs.foreground == np.count_nonzero(ph.mask)
+
+
+def test_slab_graph_equals_the_whole_graph(case, tmp_path):
+    ph, vol, limit = case
+    whole = sm.skeleton_graph(ph.mask, ph.spacing)
+    graph, info = chunked_graph(vol, survey(vol), memory_limit=limit, workdir=tmp_path)
+    assert info["n_chunks"] >= 3
+    assert (graph.n_nodes, graph.n_edges, graph.cycle_rank, graph.n_components) == \
+        (whole.n_nodes, whole.n_edges, whole.cycle_rank, whole.n_components)
+    np.testing.assert_array_equal(graph.node_degree, whole.node_degree)
+    np.testing.assert_allclose(graph.nodes, whole.nodes)
+    np.testing.assert_allclose(graph.edge_length.sum(), whole.edge_length.sum(), rtol=1e-12)
+    # equivalent radii: branch voxels counted slab by slab with the halo
+    np.testing.assert_allclose(graph.edge_radius, whole.edge_radius, equal_nan=True)
+
+
+def test_torus_cut_through_its_loop(tmp_path):
+    ph = torus(major_radius=40.0, tube_radius=4.0)
+    mask = np.ascontiguousarray(np.moveaxis(ph.mask, 0, 1))  # the ring stands across the slabs
+    vol = ArrayVolume(mask, (1.0, 1.0, 1.0), "um")
+    graph, info = chunked_graph(vol, survey(vol), memory_limit=_planes_limit(mask.shape, 80),
+                                workdir=tmp_path)
+    assert info["n_chunks"] >= 3
+    assert graph.cycle_rank == 1 and graph.n_components == 1
+    assert graph.edge_length.sum() == pytest.approx(2 * np.pi * 40.0, rel=0.02)  # analytic
+
+
+def test_seam_check_repairs_a_too_shallow_halo(tmp_path, monkeypatch):
+    """With the halo rule switched off, slab faces disagree; the seam check
+    must find that and redo the slabs with deeper halos."""
+    ph = foam(size=160.0, cell=24.0, rod_radius=6.0, seed=1)
+    vol = ArrayVolume(ph.mask, (1.0, 1.0, 1.0), "um")
+    monkeypatch.setattr(chunked, "HALO_RADII", 0)
+    monkeypatch.setattr(chunked, "DEFAULT_HALO", 16)
+    seen = []
+    real = chunked._seam_mismatches
+    monkeypatch.setattr(chunked, "_seam_mismatches", lambda r, s: seen.append(real(r, s))
+                        or seen[-1])
+    cs = chunked_skeleton(vol, survey(vol), (1.0, 1.0, 1.0),
+                          memory_limit=_planes_limit(ph.mask.shape, 150), workdir=tmp_path)
+    assert seen[0], "a 16-plane halo should not suffice for radius-6 rods"
+    assert seen[-1] == [] and cs.seam_warnings == []
+    np.testing.assert_array_equal(cs.coords, np.argwhere(thin(ph.mask)))
+
+
+def test_cavities_counted_across_slabs():
+    ph = foam(size=128.0, cell=16.0, rod_radius=2.5, seed=0)
+    vol = ArrayVolume(ph.mask, (1.0, 1.0, 1.0), "um")
+    slabs = plan_slabs(ph.mask.shape, _planes_limit(ph.mask.shape, 80), 32)
+    assert len(slabs) >= 4
+    assert chunked_cavities(vol, survey(vol), slabs) == count_cavities(ph.mask)
+
+
+def test_analyze_file_in_slabs_equals_in_memory(tmp_path):
+    ph = foam(size=128.0, cell=16.0, rod_radius=2.5, seed=2, spacing=(1.25, 1.0, 1.0))
+    path = tmp_path / "scan.tif"
+    write_tiff(path, ph.mask.astype(np.uint8) * 255, ph.spacing)
+    whole = sm.analyze(path, memory_limit="20GB", n_radii=20)
+    limit = _planes_limit(ph.mask.shape, 90)
+    slabs = sm.analyze(path, memory_limit=limit, n_radii=20, out=tmp_path / "out")
+    assert whole.summary["n_chunks"] == 1 and whole.summary["halo"] == 0
+    assert slabs.summary["n_chunks"] >= 2 and slabs.summary["halo"] > 0
+    for key in ("n_nodes", "n_branches", "cycle_rank", "total_length", "volume_fraction",
+                "mean_radius", "log_spanning_tree_count",
+                "barcode_n_bars", "barcode_total_persistence", "profile_max_crossings",
+                "max_strahler_order"):
+        assert slabs.summary[key] == pytest.approx(whole.summary[key], rel=1e-12), key
+    saved = json.loads((tmp_path / "out" / "summary.json").read_text())
+    assert saved["units"]["halo"] == "um" and saved["n_chunks"] == slabs.summary["n_chunks"]
+    assert any(s["step"] == "analysed in slabs" for s in saved["preprocessing"])
+    # A second run resumes from the slab files.
+    files = sorted((tmp_path / "out" / ".slabs").glob("slab-*.npz"))
+    stamps = [f.stat().st_mtime_ns for f in files]
+    sm.analyze(path, memory_limit=limit, n_radii=20, out=tmp_path / "out")
+    assert [f.stat().st_mtime_ns for f in files] == stamps
+
+
+def test_grey_scan_in_slabs_uses_a_streamed_otsu_threshold(tmp_path):
+    """Otsu from the streamed histogram equals scikit-image's on the whole
+    volume (same 8-bit bins)."""
+    from skimage.filters import threshold_otsu
+    rng = np.random.default_rng(0)
+    ph = foam(size=96.0, cell=16.0, rod_radius=2.5, seed=1)
+    grey = np.where(ph.mask, 170, 60).astype(np.uint8) + rng.integers(0, 30, ph.mask.shape,
+                                                                     dtype=np.uint8)
+    vol = ArrayVolume(grey, (1.0, 1.0, 1.0), "um")
+    seg = survey(vol, slab_planes=16)
+    assert seg.mode == "threshold"
+    assert seg.value == pytest.approx(threshold_otsu(grey))
+    np.testing.assert_array_equal(seg(grey), grey > threshold_otsu(grey))
+
+
+def test_readers_return_the_same_planes(tmp_path):
+    pytest.importorskip("zarr")
+    rng = np.random.default_rng(1)
+    data = rng.integers(0, 255, (20, 30, 40), dtype=np.uint8)
+    # OME-Zarr: voxel size and unit from the NGFF metadata
+    write_ome_zarr(tmp_path / "scan.zarr", data, (2.0, 0.5, 0.5), chunks=(7, 16, 16))
+    z = open_volume(tmp_path / "scan.zarr")
+    assert z.kind == "ome-zarr" and z.spacing == (2.0, 0.5, 0.5) and z.unit == "um"
+    # compressed multi-page TIFF: read page by page
+    tifffile.imwrite(tmp_path / "packed.tif", data, compression="zlib")
+    t = open_volume(tmp_path / "packed.tif", spacing=(1, 1, 1))
+    assert t.kind == "tiff pages"
+    # uncompressed TIFF: memory-mapped
+    write_tiff(tmp_path / "plain.tif", data, (1.0, 1.0, 1.0))
+    m = open_volume(tmp_path / "plain.tif")
+    assert m.kind == "memory-mapped"
+    # folder of slices, read one file per plane
+    folder = tmp_path / "slices"
+    folder.mkdir()
+    for i, plane in enumerate(data):
+        tifffile.imwrite(folder / f"s{i}.tif", plane)
+    f = open_volume(folder, spacing=(1, 1, 1))
+    assert f.kind == "slice folder"
+    import pickle
+    for vol in (z, t, m, f):
+        np.testing.assert_array_equal(vol.planes(5, 12), data[5:12])
+        again = pickle.loads(pickle.dumps(vol))  # workers reopen the file
+        np.testing.assert_array_equal(again.planes(0, 3), data[:3])
+    # read_image reads a small store whole
+    img = sm.read_image(tmp_path / "scan.zarr")
+    np.testing.assert_array_equal(img.array, data)
+    assert img.spacing == (2.0, 0.5, 0.5)
+
+
+def test_bad_large_inputs_get_one_line_errors(tmp_path):
+    pytest.importorskip("zarr")
+    with pytest.raises(InputError, match="not a size"):
+        parse_memory("lots")
+    with pytest.raises(InputError, match="positive"):
+        parse_memory("0GB")
+    with pytest.raises(InputError, match="per slab"):
+        plan_slabs((2048, 2048, 2048), parse_memory("40MB"), 32)
+    (tmp_path / "empty.zarr").mkdir()
+    (tmp_path / "empty.zarr" / ".zgroup").write_text('{"zarr_format": 2}')
+    with pytest.raises(ImageReadError, match="no OME multiscales"):
+        open_volume(tmp_path / "empty.zarr")
+    write_ome_zarr(tmp_path / "flat.zarr", np.zeros((1, 8, 8), np.uint8) + 1, (1, 1, 1))
+    with pytest.raises(InputError):
+        sm.analyze(tmp_path / "flat.zarr", memory_limit=1)
+
+
+def test_cli_refuses_what_slabs_cannot_do(tmp_path):
+    ph = foam(size=64.0, cell=16.0, rod_radius=2.5, seed=0)
+    path = tmp_path / "scan.tif"
+    write_tiff(path, ph.mask.astype(np.uint8), ph.spacing)
+    run = subprocess.run([sys.executable, "-m", "skelmorph.cli", "analyze", str(path),
+                          "--memory-limit", "1MB", "--roi", "auto", "-q"],
+                         capture_output=True, text=True)
+    assert run.returncode == 2
+    assert "--roi is not available in slabs" in run.stderr
+    assert len(run.stderr.strip().splitlines()) == 1
+    run = subprocess.run([sys.executable, "-m", "skelmorph.cli", "analyze", str(path),
+                          "--memory-limit", "10kB", "-q"], capture_output=True, text=True)
+    assert run.returncode == 2 and "per slab" in run.stderr
+
+
+def test_slabs_on_a_dask_cluster(tmp_path):
+    """The same slabs run on a local Dask cluster (worker processes)."""
+    distributed = pytest.importorskip("distributed")
+    ph = foam(size=96.0, cell=16.0, rod_radius=2.5, seed=4)
+    path = tmp_path / "scan.npy"
+    np.save(path, ph.mask)
+    vol = open_volume(path, spacing=(1, 1, 1))
+    limit = _planes_limit(ph.mask.shape, 80)
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                                  dashboard_address=None) as cluster:
+        cs = chunked_skeleton(vol, survey(vol), (1.0, 1.0, 1.0), memory_limit=limit,
+                              workdir=tmp_path / "slabs", scheduler=cluster.scheduler_address)
+    assert len(cs.slabs) >= 3
+    np.testing.assert_array_equal(cs.coords, np.argwhere(thin(ph.mask)))
