@@ -24,6 +24,9 @@
   and the sliced distance's error and speed against the exact one;
 - edt: our exact anisotropic distance transform against scipy's and the
   ``edt`` package (when installed);
+- chunks: the default analysis of tiled foams in slabs under a memory limit,
+  against the same analysis in memory and our thinning of the whole volume
+  (wall, CPU, peak memory; 1024^3 with ``--chunk-sizes 256 512 1024``);
 - memory: peak memory per voxel of ``analyze --measures bone`` on foams
   (child processes), against our thinning alone;
 - flow: the Poiseuille/Kirchhoff solve on the foam graph and 10^5-branch
@@ -472,6 +475,69 @@ def bench_memory(sizes):
               f"(analyze / thinning x{seconds / base:.1f})")
 
 
+def bench_chunks(sizes, limit):
+    """The default analysis of foams (tiles of a 256^3 foam, saved as .npy)
+    in slabs under a memory limit, against the same analysis in memory and
+    against our thinning of the whole volume (child processes: wall time,
+    CPU time, peak memory)."""
+    print(f"\nanalysis in slabs (memory limit {limit}) vs in memory vs our thinning "
+          "(child processes, VmHWM):")
+    tile = foam(size=256.0, cell=16.0, rod_radius=2.5, seed=0).mask
+    walls = {"slabs": [], "memory": []}
+    with tempfile.TemporaryDirectory(dir=".") as tmp:
+        for size in sizes:
+            reps = max(1, size // 256)
+            vol = np.tile(tile, (reps, reps, reps))[:size, :size, :size]
+            path = Path(tmp) / f"foam{size}.npy"
+            np.save(path, vol.astype(np.uint8))
+            del vol
+            n = size ** 3
+            clock_code = ("import time, numpy as np, skelmorph as sm; "
+                          "w = time.perf_counter(); c = time.process_time(); ")
+            stop = "; print(time.perf_counter() - w, time.process_time() - c)"
+            rows = {}
+            runs = {"thinning": clock_code + "from skelmorph.thinning import thin; "
+                    f"m = np.load({str(path)!r}) > 0; thin(m)" + stop,
+                    "slabs": clock_code + f"r = sm.analyze({str(path)!r}, spacing=1, "
+                    f"memory_limit={limit!r}, tree=None, n_radii=0, figures=False, "
+                    f"out={str(Path(tmp) / 'out')!r}); print(r.summary['n_chunks'], "
+                    "r.summary['n_branches'])" + stop}
+            if size <= 512:
+                runs["memory"] = clock_code + (
+                    f"r = sm.analyze({str(path)!r}, spacing=1, memory_limit='20GB', tree=None, "
+                    "n_radii=0, figures=False); print(r.summary['n_chunks'], "
+                    "r.summary['n_branches'])" + stop)
+            for name, code in runs.items():
+                rows[name] = _run_child(code)
+                if name == "slabs":
+                    import shutil
+                    shutil.rmtree(Path(tmp) / "out", ignore_errors=True)
+            base = rows["thinning"]
+            for name, (lines, mb) in rows.items():
+                wall, cpu = map(float, lines[-1].split())
+                extra = f", {lines[-2]} (slabs, branches)" if name != "thinning" else ""
+                if name in walls:
+                    walls[name].append((n, wall))
+                print(f"  {size}^3 {name:>8}: {wall:7.1f} s wall, {cpu:7.1f} s CPU, "
+                      f"{mb:7.0f} MB = {mb * 2**20 / n:5.1f} bytes/voxel "
+                      f"(x{wall / float(base[0][-1].split()[0]):.1f} thinning){extra}")
+            path.unlink()
+    for name, pts in walls.items():
+        if len(pts) >= 2:
+            x, y = np.log([p[0] for p in pts]), np.log([p[1] for p in pts])
+            print(f"  time grows as N^{np.polyfit(x, y, 1)[0]:.2f} ({name})")
+
+
+def _run_child(code):
+    """Run ``code`` in a fresh interpreter: (its output lines, its peak RSS in MB)."""
+    import subprocess
+    code += ("; print([l.split()[1] for l in open('/proc/self/status') "
+             "if l.startswith('VmHWM')][0])")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    lines = out.stdout.strip().splitlines()
+    return lines[:-1], float(lines[-1]) / 1024
+
+
 def bench_compare():
     import warnings
     from scipy.stats import spearmanr
@@ -637,11 +703,16 @@ def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--large", action="store_true", help="also run 512^3")
     ap.add_argument("--sizes", type=int, nargs="+", default=[128, 256])
+    ap.add_argument("--chunk-sizes", type=int, nargs="+", default=[256, 512],
+                    help="volume sides of the 'chunks' case (multiples of 256; add 1024)")
+    ap.add_argument("--memory-limit", default="2GB", help="memory limit of the 'chunks' case")
     ap.add_argument("--only", nargs="+",
                     default=["thinning", "pipeline", "measures", "scans", "trees", "profiles",
-                             "paths", "flow", "cohort", "compare", "report", "memory", "edt"],
+                             "paths", "flow", "cohort", "compare", "report", "memory", "edt",
+                             "chunks"],
                     choices=["thinning", "pipeline", "measures", "scans", "trees", "profiles",
-                             "paths", "flow", "cohort", "compare", "report", "memory", "edt"])
+                             "paths", "flow", "cohort", "compare", "report", "memory", "edt",
+                             "chunks"])
     args = ap.parse_args(argv)
     sizes = args.sizes + ([512] if args.large else [])
     print(f"skelmorph {sm.__version__}, numpy {np.__version__}, python {sys.version.split()[0]}")
@@ -684,6 +755,8 @@ def main(argv=None):
         bench_cohort()
     if "edt" in args.only:
         bench_edt(sizes)
+    if "chunks" in args.only:
+        bench_chunks(args.chunk_sizes, args.memory_limit)
     if "memory" in args.only:
         bench_memory(sizes)
     if "compare" in args.only:
