@@ -8,7 +8,7 @@ repeat their first point at the end.
 from __future__ import annotations
 
 import numpy as np
-from scipy import ndimage as ndi
+from numba import njit
 
 __all__ = ["segment_lengths", "polyline_lengths", "cumulative_arclength", "smooth_polylines",
            "edge_index"]
@@ -89,46 +89,60 @@ def smooth_polylines(points, offsets, sigma, closed=None):
     n_edges = len(offsets) - 1
     closed = np.zeros(n_edges, bool) if closed is None else np.asarray(closed, bool)
     half = int(np.ceil(3 * sigma))
-    counts = np.diff(offsets)
-    padded_counts = counts + 2 * half
-    pstarts = np.concatenate([[0], np.cumsum(padded_counts)])
-    eid = np.repeat(np.arange(n_edges), padded_counts)
-    local = np.arange(pstarts[-1]) - pstarts[eid] - half  # position within polyline, may be <0 or >=n
-    n = counts[eid]
-    o = offsets[eid]
-    is_closed = closed[eid]
-
-    # Open polylines: point reflection about the end points, repeated for
-    # short polylines.  Reflecting about P0 and then about P_m (m = n - 1) is a
-    # translation by 2 (P_m - P0), so index i = 2 m q + r maps to
-    # P(r) + 2 q (P_m - P0), with P(r) = 2 P_m - P(2m - r) for r > m.
-    mid = (local >= 0) & (local < n)
-    m = np.maximum(n - 1, 1)
-    q, r = np.divmod(local, 2 * m)
-    upper = r > m
-    r_in = np.where(upper, 2 * m - r, r)
-    r_in = np.where(n > 1, r_in, 0)
-    p0, pm = points[o], points[o + n - 1]
-    base = points[o + r_in]
-    base = np.where(upper[:, None], 2 * pm - base, base)
-    values = base + (2 * q)[:, None] * (pm - p0)
-    # Closed polylines: wrap around the m = n - 1 distinct points.
-    if closed.any():
-        m = np.maximum(n - 1, 1)
-        wrap = o + np.mod(local, m)
-        values[is_closed] = points[wrap[is_closed]]
-
     x = np.arange(-half, half + 1)
     kernel = np.exp(-0.5 * (x / sigma) ** 2)
     kernel /= kernel.sum()
-    smoothed = ndi.correlate1d(values, kernel, axis=0, mode="nearest")
-    out = smoothed[mid]
-    # End points exactly fixed for open polylines; closed ones close on themselves.
-    first, last = offsets[:-1], offsets[1:] - 1
-    nonempty = counts > 0
-    open_ = ~closed & nonempty
-    out[first[open_]] = points[first[open_]]
-    out[last[open_]] = points[last[open_]]
-    cl = closed & nonempty
-    out[last[cl]] = out[first[cl]]
+    out = np.empty_like(points)
+    _smooth_kernel(np.ascontiguousarray(points), offsets, closed, kernel, half, out)
     return out
+
+
+@njit(cache=True)
+def _smooth_kernel(points, offsets, closed, kernel, half, out):
+    """Each polyline in one pass, padding read on the fly (no padded copies).
+
+    Open polylines: index j outside 0..m (m = n - 1) maps by point reflection
+    about the ends; reflecting about P0 and then about P_m is a translation
+    by 2 (P_m - P0), so j = 2 m q + r gives P(r) + 2 q (P_m - P0), with
+    P(r) = 2 P_m - P(2m - r) for r > m.  Closed polylines wrap around their
+    m distinct points.
+    """
+    d = points.shape[1]
+    acc = np.empty(d)
+    for e in range(offsets.size - 1):
+        o = offsets[e]
+        n = offsets[e + 1] - o
+        if n == 0:
+            continue
+        m = max(n - 1, 1)
+        for i in range(n):
+            for c in range(d):
+                acc[c] = 0.0
+            for k in range(2 * half + 1):
+                j = i + k - half
+                w = kernel[k]
+                if closed[e]:
+                    jj = o + j % m
+                    for c in range(d):
+                        acc[c] += w * points[jj, c]
+                    continue
+                q = j // (2 * m)
+                r = j - q * 2 * m
+                upper = r > m
+                r_in = (2 * m - r if upper else r) if n > 1 else 0
+                for c in range(d):
+                    p0 = points[o, c]
+                    pm = points[o + n - 1, c]
+                    v = points[o + r_in, c]
+                    if upper:
+                        v = 2.0 * pm - v
+                    acc[c] += w * (v + 2.0 * q * (pm - p0))
+            for c in range(d):
+                out[o + i, c] = acc[c]
+        # End points exactly fixed for open polylines; closed ones close on themselves.
+        for c in range(d):
+            if closed[e]:
+                out[o + n - 1, c] = out[o, c]
+            else:
+                out[o, c] = points[o, c]
+                out[o + n - 1, c] = points[o + n - 1, c]

@@ -54,6 +54,54 @@ def test_smoothing_keeps_lines_and_ends(seed):
     np.testing.assert_allclose(out, line, atol=1e-9)
 
 
+def _smooth_reference(points, offsets, sigma, closed):
+    """Each polyline padded explicitly (reflected or wrapped), then filtered by
+    scipy.ndimage.correlate1d (general-purpose reference)."""
+    from scipy import ndimage as ndi
+    half = int(np.ceil(3 * sigma))
+    x = np.arange(-half, half + 1)
+    kernel = np.exp(-0.5 * (x / sigma) ** 2)
+    kernel /= kernel.sum()
+    out = []
+    for e in range(len(offsets) - 1):
+        p = points[offsets[e]:offsets[e + 1]]
+        n = len(p)
+        if closed[e]:
+            m = max(n - 1, 1)
+            padded = np.array([p[j % m] for j in range(-half, n + half)])
+        else:
+            def at(j):
+                if 0 <= j < n:
+                    return p[j]
+                if j < 0:  # point reflection about the first point
+                    return 2 * p[0] - at(-j)
+                return 2 * p[-1] - at(2 * (n - 1) - j)
+            padded = np.array([at(j) for j in range(-half, n + half)]) if n > 1 else \
+                np.repeat(p[:1], n + 2 * half, axis=0)
+        sm_ = ndi.correlate1d(padded, kernel, axis=0, mode="nearest")[half:half + n]
+        if closed[e]:
+            sm_[-1] = sm_[0]
+        else:
+            sm_[0], sm_[-1] = p[0], p[-1]
+        out.append(sm_)
+    return np.concatenate(out)
+
+
+@given(st.integers(0, 2**16), st.sampled_from([0.7, 2.0, 3.5]))
+def test_smoothing_equals_explicit_padding_and_scipy(seed, sigma):
+    from skelmorph.polyline import smooth_polylines
+
+    rng = np.random.default_rng(seed)
+    counts = rng.integers(1, 25, size=6)
+    offsets = np.concatenate([[0], np.cumsum(counts)])
+    points = rng.normal(size=(offsets[-1], 3)).cumsum(axis=0)
+    closed = (rng.random(6) < 0.3) & (counts > 3)
+    for e in np.flatnonzero(closed):  # a closed polyline ends where it starts
+        points[offsets[e + 1] - 1] = points[offsets[e]]
+    np.testing.assert_allclose(smooth_polylines(points, offsets, sigma, closed=closed),
+                               _smooth_reference(points, offsets, sigma, closed), atol=1e-9)
+
+
 @given(st.integers(0, 2**16), st.sampled_from([(9, 11), (6, 7, 8)]), st.floats(0.1, 0.9))
 def test_sparse_euler_characteristic_matches_scikit_image(seed, shape, density):
     # scikit-image's euler_number (general-purpose reference), full connectivity.
