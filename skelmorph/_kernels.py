@@ -483,3 +483,48 @@ def branch_end_of_points(order, parent, critical):
         if q >= 0 and not critical[q]:
             out[q] = out[p]
     return out
+
+
+@njit(cache=True)
+def sorted_positions(values, targets):
+    """Index of each target in the strictly increasing ``values``, or -1.
+
+    ``targets`` must be non-decreasing: one linear merge, no search.
+    """
+    out = np.full(targets.size, -1, np.int64)
+    j = 0
+    n = values.size
+    for i in range(targets.size):
+        t = targets[i]
+        while j < n and values[j] < t:
+            j += 1
+        if j < n and values[j] == t:
+            out[i] = j
+    return out
+
+
+@njit(cache=True)
+def count_distinct_shifted(base, shifts):
+    """Number of distinct values among ``base[i] + shifts[s]`` for all i, s.
+
+    ``base`` strictly increasing: the shifted copies are sorted runs, merged
+    head by head (linear in the number of values, no sort).
+    """
+    n = base.size
+    k = shifts.size
+    pos = np.zeros(k, np.int64)
+    count = 0
+    big = np.iinfo(np.int64).max
+    while True:
+        low = big
+        for s in range(k):
+            if pos[s] < n:
+                v = base[pos[s]] + shifts[s]
+                if v < low:
+                    low = v
+        if low == big:
+            return count
+        count += 1
+        for s in range(k):
+            if pos[s] < n and base[pos[s]] + shifts[s] == low:
+                pos[s] += 1

@@ -8,7 +8,7 @@ import itertools
 
 import numpy as np
 
-from ._kernels import cyclic_block_voxels
+from ._kernels import count_distinct_shifted, cyclic_block_voxels, sorted_positions
 from .grid import c_strides, forward_offsets
 
 __all__ = ["voxel_links", "small_cycle_voxels", "euler_characteristic"]
@@ -43,22 +43,19 @@ def voxel_links(coords, shape):
     pshape = np.asarray(shape, dtype=np.int64) + 2  # padding: no wrap-around at the edges
     strides = c_strides(pshape)
     lin = (coords.astype(np.int64) + 1) @ strides
-    # Presence by a gather from the padded volume; positions by binary search
-    # only for the links that exist.
-    occupied = np.zeros(int(np.prod(pshape)), bool)
-    occupied[lin] = True
-
+    # Neighbours found by merging sorted indices (linear, and no array of the
+    # image's size): the voxels are in C order, so lin + offset is sorted too.
     pairs = []
     for off in forward_offsets(ndim):
         off_lin = int(off @ strides)
-        i = np.flatnonzero(occupied[lin + off_lin])
+        where = sorted_positions(lin, lin + off_lin)
+        i = np.flatnonzero(where >= 0)
         if np.abs(off).sum() >= 2 and len(i):
             redundant = np.zeros(len(i), bool)
             for w in _intermediates(off):
-                redundant |= occupied[lin[i] + int(w @ strides)]
+                redundant |= sorted_positions(lin, lin[i] + int(w @ strides)) >= 0
             i = i[~redundant]
-        j = np.searchsorted(lin, lin[i] + off_lin)
-        pairs.append(np.column_stack([i, j]))
+        pairs.append(np.column_stack([i, where[i]]))
     return np.concatenate(pairs) if pairs else np.zeros((0, 2), np.int64)
 
 
@@ -101,7 +98,7 @@ def euler_characteristic(coords, shape, labels=None):
         Labels of non-adjacent voxel groups (e.g. junction clusters): then the
         Euler characteristic of every group is returned, as an array indexed
         by label.  Distinct cells are counted with ``np.unique`` here, and by
-        marking a boolean lattice (no sort) for the whole set.
+        merging sorted runs (no sort, no lattice array) for the whole set.
 
     Returns
     -------
@@ -114,9 +111,9 @@ def euler_characteristic(coords, shape, labels=None):
     lattice = np.asarray(shape, np.int64) + 1  # cube corners run 0..shape
     strides = c_strides(lattice)
     base = coords @ strides
-    if labels is None:
-        marks = np.zeros(int(np.prod(lattice)), bool)
-    else:
+    if labels is None and len(base) > 1 and np.any(np.diff(base) <= 0):
+        base = np.unique(base)  # the merge needs the voxels in C order, once each
+    if labels is not None:
         chi_of = np.zeros(int(labels.max()) + 1, np.int64)
     chi = 0
     for k in range(ndim + 1):
@@ -125,11 +122,8 @@ def euler_characteristic(coords, shape, labels=None):
             # Cells spanning `along` at the cube's corners offset across the rest.
             shifts = [int(sum(c * strides[a] for c, a in zip(corner, across)))
                       for corner in itertools.product((0, 1), repeat=len(across))]
-            if labels is None:
-                for shift in shifts:
-                    marks[base + shift] = True
-                chi += (-1) ** k * int(np.count_nonzero(marks))
-                marks[:] = False
+            if labels is None:  # distinct cells by merging sorted runs (no lattice array)
+                chi += (-1) ** k * int(count_distinct_shifted(base, np.array(shifts, np.int64)))
             else:
                 cells = (base[:, None] + np.array(shifts)[None]).ravel()
                 _, first = np.unique(cells, return_index=True)
