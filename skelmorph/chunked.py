@@ -171,7 +171,7 @@ def _histogram_otsu(counts, centres):
     return float(threshold_otsu(hist=(counts, centres)))
 
 
-def survey(volume, *, threshold=None, dark=False, label=None, slab_planes=32, progress=None):
+def survey(volume, *, threshold=None, dark=False, label=None, slab_planes=32, progress=False):
     """One streamed pass that decides the per-voxel segmentation of a volume.
 
     Binary volumes need no threshold (the larger value is the structure); a
@@ -183,7 +183,10 @@ def survey(volume, *, threshold=None, dark=False, label=None, slab_planes=32, pr
         if volume.dtype.kind not in "iub":
             raise InputError(f"--label needs an integer label image; this one is {volume.dtype}")
         return Segmenter("label", label, False, [{"step": "label", "value": int(label)}])
+    from .progress import Progress
+
     nz = volume.shape[0]
+    bar = Progress(-(-nz // slab_planes), "survey", enabled=bool(progress))
     lo = hi = None
     values = set()
     binary = True
@@ -208,8 +211,7 @@ def survey(volume, *, threshold=None, dark=False, label=None, slab_planes=32, pr
         if small_int and threshold is None:
             counts += np.bincount(s.ravel().view(np.uint8 if s.dtype == bool else s.dtype),
                                   minlength=counts.size)
-        if progress is not None:
-            progress.update(note="survey")
+        bar.update()
     if binary:
         if lo == hi:
             raise InputError("the mask is empty (no foreground voxels); check the threshold "
@@ -333,8 +335,11 @@ def _run_slabs(volume, seg, spacing, slabs, halo, memory_limit, workdir, workers
     for by slabs that did not fit."""
     from .engine import execute
 
+    from .progress import Progress
+
     tasks = [(volume, seg, tuple(spacing), a, b, halo, memory_limit, str(workdir))
              for a, b in slabs]
+    bar = Progress(len(tasks), "slabs", enabled=bool(progress))
     results, needs = {}, []
     for out in execute(slab_task, tasks, workers=workers, scheduler=scheduler,
                        name="skelmorph-slab"):
@@ -345,8 +350,7 @@ def _run_slabs(volume, seg, spacing, slabs, halo, memory_limit, workdir, workers
             r = {k: z[k] for k in z.files}
         r["shape"] = volume.shape
         results[int(r["a"])] = r
-        if progress is not None:
-            progress.update(note=f"slab {int(r['a'])}-{int(r['b'])}")
+        bar.update(note=f"planes {int(r['a'])}-{int(r['b'])}")
     return results, needs
 
 
@@ -363,7 +367,7 @@ class ChunkedSkeleton:
 
 
 def chunked_skeleton(volume, seg, spacing, *, memory_limit, workdir, halo=None, workers=1,
-                     scheduler=None, progress=None):
+                     scheduler=None, progress=False):
     """Thin a volume slab by slab (see the module docstring).
 
     Parameters
@@ -379,6 +383,8 @@ def chunked_skeleton(volume, seg, spacing, *, memory_limit, workdir, halo=None, 
         Initial halo in planes (default ``SLAB_ALIGN``; it grows as needed).
     workers, scheduler
         Local processes, or a Dask scheduler address (see :mod:`skelmorph.engine`).
+    progress : bool
+        A progress bar over the slabs on stderr.
     """
     Path(workdir).mkdir(parents=True, exist_ok=True)
     halo = _align_up(halo or DEFAULT_HALO)
@@ -556,7 +562,7 @@ def work_folder(out, source):
 
 
 def chunked_graph(volume, seg, *, memory_limit, workdir, halo=None, workers=1, scheduler=None,
-                  progress=None, timings=None, unit=None, prune=True, prune_factor=1.5,
+                  progress=False, timings=None, unit=None, prune=True, prune_factor=1.5,
                   min_branch_length=0.0, merge_junctions=True, extend_tips=False, smoothing=2.0):
     """The centreline graph of a volume analysed in slabs.
 

@@ -1,8 +1,9 @@
 """Volumes read a slab of planes at a time, for scans larger than memory.
 
 :func:`open_volume` opens a 3D image without loading it: an uncompressed
-multi-page TIFF or a ``.npy`` file is memory-mapped, a compressed TIFF is
-read page by page, a folder of 2D slices file by file, and an OME-Zarr
+multi-page TIFF or a ``.npy`` file is read by plain file reads of plane
+ranges (a memory map would keep every page read resident), a compressed
+TIFF is read page by page, a folder of 2D slices file by file, and an OME-Zarr
 store (the open NGFF format, read with the ``zarr`` package) chunk by
 chunk.  Every kind answers :meth:`Volume.planes`, the planes
 ``start:stop`` along the first axis as an ndarray; that is all the chunked
@@ -44,7 +45,7 @@ class Volume:
     unit : str
     source : str
     kind : str
-        How it is read: ``"memory-mapped"``, ``"tiff pages"``, ``"slice folder"``,
+        How it is read: ``"file reads"``, ``"tiff pages"``, ``"slice folder"``,
         ``"ome-zarr"`` or ``"array"``.
     """
 
@@ -92,6 +93,28 @@ class ArrayVolume(Volume):
 
     def planes(self, start, stop):
         return np.array(self.array[start:stop])
+
+
+class RawFileVolume(Volume):
+    """Uncompressed C-order data at a byte offset of a file (``.npy``,
+    contiguous TIFF), read plane ranges with plain file reads.  Unlike a
+    memory map, the pages read do not stay in the process's memory."""
+
+    kind = "file reads"
+
+    def __init__(self, path, offset, shape, dtype, spacing, unit):
+        super().__init__(shape, dtype, spacing, unit, str(path))
+        self.path = Path(path)
+        self.offset = int(offset)
+
+    def planes(self, start, stop):
+        plane = int(np.prod(self.shape[1:]))
+        with open(self.path, "rb") as fh:
+            fh.seek(self.offset + start * plane * self.dtype.itemsize)
+            data = np.fromfile(fh, self.dtype, count=(stop - start) * plane)
+        if data.size != (stop - start) * plane:
+            raise ImageReadError(f"{self.path} ends before plane {stop}: the file is truncated")
+        return data.reshape((stop - start,) + self.shape[1:])
 
 
 class TiffPagesVolume(Volume):
@@ -244,13 +267,28 @@ def _open_tiff(path):
         if need > os.path.getsize(path):
             raise ImageReadError(f"TIFF {path} is truncated: its image data needs {need} bytes "
                                  f"but the file has {os.path.getsize(path)}")
-        try:
-            array = tifffile.memmap(path, mode="r")
-            if array.shape == shape:
-                return ArrayVolume(array, spacing, unit, str(path), "memory-mapped")
-        except Exception:  # noqa: BLE001 - fall back to reading pages
-            pass
+        return RawFileVolume(path, series.dataoffset, shape, dtype, spacing, unit)
     return TiffPagesVolume(path, shape, dtype, spacing, unit)
+
+
+def _open_npy(path):
+    try:
+        with open(path, "rb") as fh:
+            version = np.lib.format.read_magic(fh)
+            read_header = (np.lib.format.read_array_header_1_0 if version == (1, 0)
+                           else np.lib.format.read_array_header_2_0)
+            shape, fortran, dtype = read_header(fh)
+            offset = fh.tell()
+    except Exception as exc:  # noqa: BLE001
+        raise ImageReadError(f"cannot read {path} as a .npy array: {exc}") from None
+    if fortran or dtype.hasobject:
+        raise ImageReadError(f"{path}: large .npy arrays must be stored in C order, "
+                             "without Python objects")
+    need = offset + int(np.prod(shape, dtype=np.float64)) * dtype.itemsize
+    if need > os.path.getsize(path):
+        raise ImageReadError(f"{path} is truncated: its array needs {need} bytes but the file "
+                             f"has {os.path.getsize(path)}")
+    return RawFileVolume(path, offset, shape, dtype, None, None)
 
 
 def _open_folder(path):
@@ -299,11 +337,7 @@ def open_volume(path, spacing=None, unit=None):
     elif path.suffix.lower() in _TIFF:
         vol = _open_tiff(path)
     elif path.suffix.lower() == ".npy":
-        try:
-            array = np.load(path, mmap_mode="r", allow_pickle=False)
-        except Exception as exc:  # noqa: BLE001
-            raise ImageReadError(f"cannot read {path} as a .npy array: {exc}") from None
-        vol = ArrayVolume(array, None, None, str(path), "memory-mapped")
+        vol = _open_npy(path)
     else:
         raise ImageReadError(f"{path}: large scans are read from a multi-page TIFF, a .npy file, "
                              "a folder of slices or an OME-Zarr store")

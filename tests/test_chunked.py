@@ -162,10 +162,13 @@ def test_readers_return_the_same_planes(tmp_path):
     tifffile.imwrite(tmp_path / "packed.tif", data, compression="zlib")
     t = open_volume(tmp_path / "packed.tif", spacing=(1, 1, 1))
     assert t.kind == "tiff pages"
-    # uncompressed TIFF: memory-mapped
+    # uncompressed TIFF and .npy: plain file reads at the data offset
     write_tiff(tmp_path / "plain.tif", data, (1.0, 1.0, 1.0))
     m = open_volume(tmp_path / "plain.tif")
-    assert m.kind == "memory-mapped"
+    assert m.kind == "file reads"
+    np.save(tmp_path / "plain.npy", data)
+    npy = open_volume(tmp_path / "plain.npy", spacing=1)
+    assert npy.kind == "file reads"
     # folder of slices, read one file per plane
     folder = tmp_path / "slices"
     folder.mkdir()
@@ -174,7 +177,7 @@ def test_readers_return_the_same_planes(tmp_path):
     f = open_volume(folder, spacing=(1, 1, 1))
     assert f.kind == "slice folder"
     import pickle
-    for vol in (z, t, m, f):
+    for vol in (z, t, m, npy, f):
         np.testing.assert_array_equal(vol.planes(5, 12), data[5:12])
         again = pickle.loads(pickle.dumps(vol))  # workers reopen the file
         np.testing.assert_array_equal(again.planes(0, 3), data[:3])
@@ -196,6 +199,11 @@ def test_bad_large_inputs_get_one_line_errors(tmp_path):
     (tmp_path / "empty.zarr" / ".zgroup").write_text('{"zarr_format": 2}')
     with pytest.raises(ImageReadError, match="no OME multiscales"):
         open_volume(tmp_path / "empty.zarr")
+    np.save(tmp_path / "cut.npy", np.zeros((40, 40, 40), np.uint8))
+    with open(tmp_path / "cut.npy", "r+b") as fh:
+        fh.truncate(20000)
+    with pytest.raises(ImageReadError, match="truncated"):
+        open_volume(tmp_path / "cut.npy")
     write_ome_zarr(tmp_path / "flat.zarr", np.zeros((1, 8, 8), np.uint8) + 1, (1, 1, 1))
     with pytest.raises(InputError):
         sm.analyze(tmp_path / "flat.zarr", memory_limit=1)
