@@ -356,48 +356,66 @@ class SkeletonGraph:
         fmt = ('<node id="%d">' + "".join(
             f'<data key="n{i}">%{"d" if t == "long" else "r"}</data>'
             for i, (_, t) in enumerate(node_keys)) + "</node>")
-        nodes = [fmt % row for row in zip(range(self.n_nodes), *[c.tolist() for c in cols])]
-        coord = format_numbers(self.points)
         d = self.ndim
         kinds = self.edge_kind
-        off = self.offsets.tolist()
-        edges = []
-        for e, (u, v) in enumerate(self.edges.tolist()):
-            pts = " ".join(coord[off[e] * d:off[e + 1] * d])
-            edges.append(f'<edge id="{e}" source="{u}" target="{v}"><data key="e0">{e}</data>'
-                         f'<data key="e1">{float(self.edge_length[e])!r}</data>'
-                         f'<data key="e2">{float(mean[e])!r}</data>'
-                         f'<data key="e3">{kinds[e]}</data><data key="e4">{pts}</data></edge>')
+        off = self.offsets
+        block = 20000  # written block by block: memory does not grow with the graph
         with atomic_write(path, "w", encoding="utf-8") as fh:
-            fh.write("\n".join(head + nodes + edges + ["</graph>", "</graphml>", ""]))
+            fh.write("\n".join(head) + "\n")
+            for a in range(0, self.n_nodes, block):
+                b = min(a + block, self.n_nodes)
+                fh.write("\n".join(fmt % row for row in zip(
+                    range(a, b), *[c[a:b].tolist() for c in cols])) + "\n")
+            for a in range(0, self.n_edges, block):
+                b = min(a + block, self.n_edges)
+                base = int(off[a])
+                coord = format_numbers(self.points[base:int(off[b])])
+                lines = []
+                for e, (u, v) in enumerate(self.edges[a:b].tolist(), start=a):
+                    pts = " ".join(coord[(int(off[e]) - base) * d:(int(off[e + 1]) - base) * d])
+                    lines.append(f'<edge id="{e}" source="{u}" target="{v}"><data key="e0">{e}'
+                                 f'</data><data key="e1">{float(self.edge_length[e])!r}</data>'
+                                 f'<data key="e2">{float(mean[e])!r}</data>'
+                                 f'<data key="e3">{kinds[e]}</data><data key="e4">{pts}</data>'
+                                 "</edge>")
+                fh.write("\n".join(lines) + "\n")
+            fh.write("</graph>\n</graphml>\n")
 
     def _write_vtp(self, path):
         pts = self._vtk_points()
         counts = np.diff(self.offsets)
 
-        def block(name, arr, fmt, ncomp=1, vtype="Float64"):
+        def block(fh, name, arr, ncomp=1, vtype="Float64"):
             # Inline binary: base64 of a 64-bit byte count followed by the
-            # little-endian values (VTK XML "binary" format, header UInt64).
+            # little-endian values (VTK XML "binary" format, header UInt64),
+            # encoded in pieces of whole 3-byte groups so memory stays flat.
             import base64
-            data = np.ascontiguousarray(arr, dtype="<f8" if vtype == "Float64" else "<i8").tobytes()
-            body = base64.b64encode(np.uint64(len(data)).tobytes() + data).decode("ascii")
-            return (f'<DataArray type="{vtype}" Name="{name}" NumberOfComponents="{ncomp}" '
-                    f'format="binary">{body}</DataArray>')
+            data = np.ascontiguousarray(arr, dtype="<f8" if vtype == "Float64" else "<i8")
+            raw = memoryview(data.reshape(-1).view(np.uint8))
+            fh.write(f'<DataArray type="{vtype}" Name="{name}" NumberOfComponents="{ncomp}" '
+                     'format="binary">')
+            head = np.uint64(raw.nbytes).tobytes()
+            step = 3 * 2**20
+            first = (head + bytes(raw[:step - len(head)]))
+            fh.write(base64.b64encode(first).decode("ascii"))
+            for i in range(step - len(head), raw.nbytes, step):
+                fh.write(base64.b64encode(raw[i:i + step]).decode("ascii"))
+            fh.write("</DataArray>\n")
 
-        parts = [
-            '<?xml version="1.0"?>',
-            '<VTKFile type="PolyData" version="1.0" byte_order="LittleEndian" '
-            'header_type="UInt64">',
-            "<PolyData>",
-            f'<Piece NumberOfPoints="{len(pts)}" NumberOfVerts="0" NumberOfLines="{self.n_edges}" '
-            f'NumberOfStrips="0" NumberOfPolys="0">',
-            "<PointData Scalars=\"radius\">", block("radius", self.point_radius, "%.6g"), "</PointData>",
-            "<CellData>", block("branch", np.arange(self.n_edges), "%d", vtype="Int64"),
-            block("length", self.edge_length, "%.6g"), "</CellData>",
-            "<Points>", block("Points", pts, "%.6g", ncomp=3), "</Points>",
-            "<Lines>", block("connectivity", np.arange(len(pts)), "%d", vtype="Int64"),
-            block("offsets", np.cumsum(counts), "%d", vtype="Int64"), "</Lines>",
-            "</Piece>", "</PolyData>", "</VTKFile>",
-        ]
         with atomic_write(path, "w", encoding="utf-8") as fh:
-            fh.write("\n".join(parts) + "\n")
+            fh.write('<?xml version="1.0"?>\n'
+                     '<VTKFile type="PolyData" version="1.0" byte_order="LittleEndian" '
+                     'header_type="UInt64">\n<PolyData>\n'
+                     f'<Piece NumberOfPoints="{len(pts)}" NumberOfVerts="0" '
+                     f'NumberOfLines="{self.n_edges}" NumberOfStrips="0" NumberOfPolys="0">\n'
+                     '<PointData Scalars="radius">\n')
+            block(fh, "radius", self.point_radius)
+            fh.write("</PointData>\n<CellData>\n")
+            block(fh, "branch", np.arange(self.n_edges), vtype="Int64")
+            block(fh, "length", self.edge_length)
+            fh.write("</CellData>\n<Points>\n")
+            block(fh, "Points", pts, ncomp=3)
+            fh.write("</Points>\n<Lines>\n")
+            block(fh, "connectivity", np.arange(len(pts)), vtype="Int64")
+            block(fh, "offsets", np.cumsum(counts), vtype="Int64")
+            fh.write("</Lines>\n</Piece>\n</PolyData>\n</VTKFile>\n")

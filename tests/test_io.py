@@ -188,3 +188,34 @@ def test_written_files_respect_umask(tmp_path, umask, expected):
         os.umask(old)
     for name in ("s.json", "t.csv"):
         assert stat.S_IMODE((tmp_path / name).stat().st_mode) == expected
+
+
+def test_large_graph_files_written_in_blocks_read_back(tmp_path):
+    """GraphML and VTP are written block by block (20 000 edges, 3 MB of
+    values at a time); networkx and pyvista (general-purpose readers) must
+    read back every edge and point, across the block boundaries."""
+    import networkx as nx
+    pv = pytest.importorskip("pyvista")
+    from skelmorph.graph import SkeletonGraph
+    n_edges, per = 30_001, 7
+    rng = np.random.default_rng(0)
+    points = rng.normal(size=(n_edges * per, 3)).cumsum(axis=0)
+    offsets = np.arange(0, n_edges * per + 1, per)
+    nodes = np.concatenate([points[offsets[:-1]], points[offsets[1:] - 1]])
+    edges = np.column_stack([np.arange(n_edges), np.arange(n_edges) + n_edges])
+    g = SkeletonGraph(nodes=nodes, node_radius=np.ones(len(nodes)),
+                      node_degree=np.ones(len(nodes), np.int64), edges=edges, points=points,
+                      point_radius=rng.random(len(points)), offsets=offsets,
+                      edge_length=np.ones(n_edges), spacing=(1.0, 1.0, 1.0), unit="um",
+                      shape=(10, 10, 10), meta={})
+    g.write(tmp_path / "g.graphml")
+    h = nx.read_graphml(tmp_path / "g.graphml")
+    assert h.number_of_nodes() == len(nodes) and h.number_of_edges() == n_edges
+    last = h.edges[str(n_edges - 1), str(2 * n_edges - 1)]["points"]
+    np.testing.assert_allclose(np.array(last.split(), float).reshape(-1, 3),
+                               points[-per:], rtol=1e-5)
+    g.write(tmp_path / "g.vtp")
+    mesh = pv.read(tmp_path / "g.vtp")
+    assert mesh.n_points == len(points) and mesh.n_cells == n_edges
+    np.testing.assert_allclose(mesh["radius"], g.point_radius)
+    np.testing.assert_allclose(mesh.points, g._vtk_points())
