@@ -417,13 +417,13 @@ def _graph_in_slabs(volume, out, *, threshold, dark, label, prune, prune_factor,
     """Survey, thin in slabs and build the graph of a scan too large for memory."""
     from .chunked import chunked_graph, default_memory_limit, parse_memory, survey, work_folder
     t0 = time.perf_counter()
-    seg = survey(volume, threshold=threshold, dark=dark, label=label)
+    seg = survey(volume, threshold=threshold, dark=dark, label=label, progress=bar.enabled)
     timings["read"] = time.perf_counter() - t0
     bar.update(note="surveyed")
     limit = parse_memory(memory_limit) if memory_limit is not None else default_memory_limit()
     graph, info = chunked_graph(
         volume, seg, memory_limit=limit, workdir=work_folder(out, volume.source),
-        workers=workers, scheduler=scheduler, timings=timings, prune=prune,
+        workers=workers, scheduler=scheduler, timings=timings, progress=bar.enabled, prune=prune,
         prune_factor=prune_factor, min_branch_length=min_branch_length,
         merge_junctions=merge_junctions, extend_tips=extend_tips, smoothing=smoothing)
     bar.update(note="graph built")
