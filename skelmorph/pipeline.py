@@ -574,9 +574,14 @@ def _field_measures(sets, graph, mask, spacing, unit, roi, thickness_map, timing
             out["summary"].update(summ)
             out["tables"]["cortical_slices"] = slices
         elif name == "venation":
+            from .measure.loops import loop_hierarchy
             from .measure.venation import venation_measures
+            origin = graph.meta.get("roi_origin")
             out["summary"].update(venation_measures(graph, mask, spacing, unit, region=roi,
-                                                    origin=graph.meta.get("roi_origin")))
+                                                    origin=origin))
+            lsum, ltable = loop_hierarchy(graph, mask, spacing, region=roi, origin=origin)
+            out["summary"].update(lsum)
+            out["tables"]["loop_hierarchy"] = ltable
         timings[name] = time.perf_counter() - t0
         bar.update(note=f"{name} measures")
     out["summary"]["measure_sets"] = list(sets)
@@ -618,6 +623,14 @@ def write_results(result, out, figures=True):
         fig.suptitle("cortical cross-sections (research measurements)", fontsize=9)
         save(fig, out / "cortical.png")
         files.append(out / "cortical.png")
+    if figures and "loop_hierarchy" in result.tables:
+        from .report.figures import new_axes, plot_loop_hierarchy, save
+        fig, ax = new_axes(1, 1, size=(5.8, 3.4), fixed=True)
+        plot_loop_hierarchy(result.tables["loop_hierarchy"], ax[0, 0], unit=g.unit)
+        ax[0, 0].set_title("nesting tree of the areoles, veins removed thinnest first "
+                           "(research measurements)", fontsize=8)
+        save(fig, out / "loop_hierarchy.png")
+        files.append(out / "loop_hierarchy.png")
     if figures and "flow" in result.branch_columns:
         from .report.figures import new_axes, plot_flow, save
         fig, ax = new_axes(1, 1, size=(5.8, 4.6), fixed=True)

@@ -126,6 +126,15 @@ _LIST = [
     _m("areole_density", "density", "{u}^-2", "areoles per area of lamina"),
     _m("mean_areole_area", "area", "{u}^2", "mean area of an areole"),
     _m("free_ending_veinlets", "count", "1", "vein tips inside the lamina"),
+    # hierarchical loop decomposition (Katifori & Magnasco 2012)
+    _m("loop_merges", "count", "1", "areole merges of the nesting tree (veins removed thinnest "
+       "first that joined two loops)"),
+    _m("loop_nesting_levels", "count", "1", "height of the nesting tree of the areoles, in merge "
+       "levels (Katifori & Magnasco 2012)"),
+    _m("loop_partition_asymmetry", "ratio", "1", "mean partition asymmetry |r - s|/(r + s - 2) "
+       "of the nesting tree's merges (van Pelt et al. 1992)"),
+    _m("loop_nesting_number", "ratio", "1", "1 - mean partition asymmetry of the nesting tree: "
+       "1 for loops nested in balanced halves, near 0 for loops added one by one"),
     _m("lamina_area", "area", "{u}^2", "area of the lamina (region of interest)"),
     # trees and barcodes
     _m("root_node", "identifier", "1", "node chosen as the root"),

@@ -294,3 +294,39 @@ def plot_flow(graph, flow, ax, unit="um"):
     ax.set_xlabel(f"{names[axes2[1]]} ({unit})")
     ax.set_ylabel(f"{names[axes2[0]]} ({unit})")
     return lc
+
+
+def plot_loop_hierarchy(table, ax, unit="um"):
+    """The nesting tree of the areoles as a dendrogram: leaves are areoles,
+    each join is drawn at the width of the vein whose removal made it
+    (Katifori & Magnasco 2012).  Separate trees are joined above the widest
+    vein, for display only.  Returns the linkage matrix drawn."""
+    from scipy.cluster.hierarchy import dendrogram
+    parent = np.asarray(table["parent"])
+    leaves = np.asarray(table["areoles"])
+    width = np.asarray(table["vein_width"], float)
+    n = int(np.count_nonzero(leaves == 1) if len(leaves) else 0)
+    if n < 2:
+        ax.text(0.5, 0.5, "fewer than two areoles", ha="center", va="center",
+                transform=ax.transAxes)
+        return np.zeros((0, 4))
+    rows = []
+    for k in range(n, len(parent)):
+        a, b = np.flatnonzero(parent == k)
+        rows.append([a, b, width[k], leaves[k]])
+    roots = list(np.flatnonzero(parent == -1))
+    top = (width.max() if width.max() > 0 else 1.0) * 1.1
+    size = {int(r): int(leaves[r]) for r in roots}
+    next_id = len(parent)
+    while len(roots) > 1:  # join separate trees for display
+        a, b = roots.pop(0), roots.pop(0)
+        rows.append([a, b, top, size[a] + size[b]])
+        size[next_id] = size[a] + size[b]
+        roots.append(next_id)
+        next_id += 1
+    z = np.asarray(rows, float)
+    dendrogram(z, ax=ax, no_labels=True, color_threshold=0, above_threshold_color="0.25",
+               link_color_func=lambda k: "0.25")
+    ax.set_ylabel(f"width of the removed vein ({unit})")
+    ax.set_xlabel(f"areoles ({n})")
+    return z
