@@ -582,6 +582,10 @@ def _field_measures(sets, graph, mask, spacing, unit, roi, thickness_map, timing
             lsum, ltable = loop_hierarchy(graph, mask, spacing, region=roi, origin=origin)
             out["summary"].update(lsum)
             out["tables"]["loop_hierarchy"] = ltable
+            from .measure.venation import areole_shapes
+            asum, atable = areole_shapes(mask, spacing, region=roi)
+            out["summary"].update(asum)
+            out["tables"]["areoles"] = atable
         timings[name] = time.perf_counter() - t0
         bar.update(note=f"{name} measures")
     out["summary"]["measure_sets"] = list(sets)

@@ -125,6 +125,10 @@ _LIST = [
     _m("areole_count", "count", "1", "areoles: regions of lamina enclosed by veins"),
     _m("areole_density", "density", "{u}^-2", "areoles per area of lamina"),
     _m("mean_areole_area", "area", "{u}^2", "mean area of an areole"),
+    _m("mean_areole_perimeter", "length", "{u}", "mean perimeter of an areole (Crofton "
+       "estimate; square pixels only)"),
+    _m("mean_areole_circularity", "ratio", "1", "mean 4 pi area / perimeter^2 of the areoles "
+       "(1 for a disc, 0.785 for a square)"),
     _m("free_ending_veinlets", "count", "1", "vein tips inside the lamina"),
     # hierarchical loop decomposition (Katifori & Magnasco 2012)
     _m("loop_merges", "count", "1", "areole merges of the nesting tree (veins removed thinnest "

@@ -83,3 +83,32 @@ def test_three_dimensional_input_is_refused():
     g = sm.skeleton_graph(ph.mask, ph.spacing)
     with pytest.raises(InputError, match="2D"):
         loop_hierarchy(g, ph.mask, ph.spacing)
+
+
+def test_areole_shapes_of_square_and_round_areoles():
+    """Squares: area exact, circularity pi/4 (analytic) within the Crofton
+    estimate's few percent; discs cut out of a plate: circularity 1."""
+    from skelmorph.measure.venation import areole_shapes
+    img = _leaf(rows=[13, 3, 11, 3, 13], cols=[13, 5, 9, 5, 13])
+    summary, table = areole_shapes(img, (2.0, 2.0))
+    assert len(table["area"]) == 16
+    # Four-direction Crofton reads axis-aligned edges about 6 % short (measured
+    # here: 127.8 for a 34 px square whose pixel outline is 136), so a square
+    # reads about 0.89 instead of pi/4.
+    assert np.pi / 4 < summary["mean_areole_circularity"] < 0.9
+    # a vein of odd width w covers w pixels, so a cell between veins of
+    # widths a and b is 40 - (a + b) // 2 - 1 pixels wide (by construction)
+    rows, cols = [13, 3, 11, 3, 13], [13, 5, 9, 5, 13]
+    side = lambda ws: [40 - ws[i] // 2 - ws[i + 1] // 2 - 1 for i in range(4)]  # noqa: E731
+    expected = sorted(h * w * 4.0 for h in side(rows) for w in side(cols))
+    np.testing.assert_allclose(np.sort(table["area"]), expected)
+    plate = np.ones((200, 200), bool)
+    yy, xx = np.mgrid[:200, :200]
+    for cy, cx in ((50, 50), (50, 150), (150, 100)):
+        plate[np.hypot(yy - cy, xx - cx) < 35] = False
+    summary, table = areole_shapes(plate, (1.0, 1.0))
+    assert len(table["area"]) == 3
+    np.testing.assert_allclose(table["perimeter"], 2 * np.pi * 35, rtol=0.02)
+    np.testing.assert_allclose(table["circularity"], 1.0, atol=0.03)
+    aniso, _ = areole_shapes(plate, (1.0, 2.0))
+    assert np.isnan(aniso["mean_areole_perimeter"])

@@ -12,7 +12,7 @@ from scipy import ndimage as ndi
 
 from ..errors import InputError
 
-__all__ = ["venation_measures", "lamina_mask"]
+__all__ = ["venation_measures", "lamina_mask", "areole_shapes"]
 
 
 def lamina_mask(veins, region=None):
@@ -106,3 +106,46 @@ def venation_measures(graph, veins, spacing, unit="um", region=None, origin=None
         "lamina_area": area,
         "lamina_source": source,
     }
+
+
+def areole_shapes(veins, spacing, region=None):
+    """Area, perimeter and circularity of every areole.
+
+    The perimeter is the Crofton estimate over four directions (Lehmann G,
+    Legland D (2012) Efficient N-dimensional surface estimation using Crofton
+    formula and run-length encoding. Insight J; scikit-image's
+    ``perimeter_crofton``), within 1 % on digitised discs where counting
+    boundary steps reads 4-5 % high, but about 6 % short on edges along the
+    pixel axes; circularity is 4 pi A / P^2 (1 for a disc, pi/4 for a
+    square, which reads about 0.89 when aligned with the pixels).  Perimeters need square pixels: with
+    anisotropic pixels they are NaN.
+
+    Returns
+    -------
+    summary : dict
+        ``mean_areole_perimeter`` and ``mean_areole_circularity``.
+    table : dict of arrays
+        ``areole``, ``area``, ``perimeter``, ``circularity`` (one row per areole).
+    """
+    from skimage.measure import regionprops
+
+    from .loops import _areoles
+    veins = np.asarray(veins, bool)
+    spacing = np.asarray(spacing, float)
+    lamina, _ = lamina_mask(veins, region)
+    labels, n = _areoles(veins, lamina)
+    area = np.bincount(labels.ravel(), minlength=n + 1)[1:] * float(np.prod(spacing))
+    perimeter = np.full(n, np.nan)
+    if n and np.isclose(spacing[0], spacing[1], rtol=1e-6):
+        for r in regionprops(labels):  # one entry per areole, not per pixel
+            perimeter[r.label - 1] = r.perimeter_crofton * spacing[0]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        circ = 4 * np.pi * area / perimeter ** 2
+    summary = {
+        "mean_areole_perimeter": float(np.nanmean(perimeter)) if np.isfinite(perimeter).any()
+        else float("nan"),
+        "mean_areole_circularity": float(np.nanmean(circ)) if np.isfinite(circ).any()
+        else float("nan"),
+    }
+    return summary, {"areole": np.arange(1, n + 1), "area": area, "perimeter": perimeter,
+                     "circularity": circ}
