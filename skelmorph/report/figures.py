@@ -328,5 +328,9 @@ def plot_loop_hierarchy(table, ax, unit="um"):
     dendrogram(z, ax=ax, no_labels=True, color_threshold=0, above_threshold_color="0.25",
                link_color_func=lambda k: "0.25")
     ax.set_ylabel(f"width of the removed vein ({unit})")
-    ax.set_xlabel(f"areoles ({n})")
+    n_trees = int(np.count_nonzero(parent == -1))
+    ax.set_xlabel(f"areoles ({n})" + (f"; {n_trees} separate trees, joined at the top line "
+                                       "for display only" if n_trees > 1 else ""))
+    if n_trees > 1:
+        ax.axhline(top, color="0.6", lw=0.8, ls="--")
     return z
