@@ -208,3 +208,27 @@ def test_report_on_a_comparison_written_elsewhere(study, tmp_path):
     empty = tmp_path / "empty"
     empty.mkdir()
     assert main(["cohort", "report", str(empty)]) == 2
+
+
+def test_gallery_shows_modelled_flow_on_one_scale(tmp_path):
+    """Samples analysed with the vessel set get a second picture coloured by
+    the flow model, all on one log colour scale (the 1st-99th percentile of
+    the positive branch flows of the samples shown)."""
+    import json
+    manifest = make_study(tmp_path / "data", per_group=2, size=40.0)
+    run_cohort(manifest, tmp_path / "study", {"n_radii": 0, "figures": False,
+                                              "measures": ["vessel"]}, progress=False)
+    compare_cohort(tmp_path / "study", n_repeats=2, n_permutations=10)
+    page = write_report(tmp_path / "study")
+    html = page.read_text()
+    gallery = tmp_path / "study" / "figures" / "gallery"
+    flows = sorted(gallery.glob("*-flow.png"))
+    assert len(flows) == 4
+    assert html.count(": modelled flow'") == 4  # one flow picture per sample shown
+    assert "a model, not measured flow" in html
+    lo, hi = json.loads((gallery / "flow-colour-scale.json").read_text())
+    import pandas as pd
+    values = np.concatenate([pd.read_csv(p)["flow"].to_numpy(float) for p in
+                             (tmp_path / "study" / "samples").glob("*/branches.csv")])
+    values = values[np.isfinite(values) & (values > 0)]
+    assert (lo, hi) == pytest.approx(tuple(np.percentile(values, [1, 99])))

@@ -224,16 +224,24 @@ def write_report(study, out=None, max_gallery=24, max_rows=200):
     # Gallery.
     items = _gallery(study, cohort, labels, figdir / "gallery", max_gallery)
     if items:
-        parts.append("<h2>Samples</h2><div class='gallery'>" + "".join(
-            f"<figure><img src='{_esc(src)}' alt='{_esc(s)}'><figcaption>{_esc(s)} "
-            f"({_esc(g)})</figcaption></figure>" for s, g, src in items) + "</div>")
+        parts.append("<h2>Samples</h2>")
+        if any(flow for *_, flow in items):
+            parts.append("<p class='small'>Beside each sample with the vessel measures: its "
+                         "centrelines coloured by the flow of a Poiseuille model from the "
+                         "root (one log scale for the study); a model, not measured flow.</p>")
+        parts.append("<div class='gallery'>" + "".join(
+            f"<figure><img src='{_esc(src)}' alt='{_esc(s)}'>"
+            + (f"<img src='{_esc(flow)}' alt='{_esc(s)}: modelled flow'>" if flow else "")
+            + f"<figcaption>{_esc(s)} ({_esc(g)})</figcaption></figure>"
+            for s, g, src, flow in items) + "</div>")
         if len(cohort) > len(items):
             parts.append(f"<p class='small'>{len(items)} of {len(cohort)} samples shown.</p>")
     # Methods.
     parts.append("<h2>Methods</h2>")
     opts = run.get("options", {})
     parts.append("<p>Each image was read with its voxel size, segmented, skeletonized "
-                 "(scikit-image), turned into an embedded graph with radii from exact distance "
+                 "(skelmorph's distance-ordered thinning unless the options name "
+                 "scikit-image's), turned into an embedded graph with radii from exact distance "
                  "transforms, and measured in physical units. Options given for the analysis: "
                  + (", ".join(f"<code>{_esc(k)} = {_esc(v)}</code>" for k, v in opts.items())
                     or "none (defaults)") + ".</p>")

@@ -1,6 +1,7 @@
 """Sample pictures for the report gallery: the centrelines coloured by radius,
 rendered off-screen with pyvista when it can render here, else with
-matplotlib; one colour scale per study."""
+matplotlib; beside them, for samples with the vessel set, the centrelines
+coloured by modelled flow.  One colour scale per study for each."""
 
 from __future__ import annotations
 
@@ -11,7 +12,7 @@ import numpy as np
 
 from ..io import atomic_path, write_json
 
-__all__ = ["render_thumbnail", "gallery"]
+__all__ = ["render_thumbnail", "render_flow_thumbnail", "gallery"]
 
 
 _PYVISTA_OK = None
@@ -185,7 +186,65 @@ def gallery(study, cohort, labels, folder, max_gallery):
             render_thumbnail(graph, thumb, image=image, clim=clim)
         items.append((s, labels[i], f"figures/gallery/{s}.png"))
     write_json(scale_file, list(clim or []))
-    return items
+    flow_pictures = _flow_gallery(study, cohort, graphs, folder)
+    return [(s, g, src, flow_pictures.get(s)) for s, g, src in items]
+
+
+def _flow_gallery(study, cohort, graphs, folder):
+    """Pictures coloured by the modelled flow of samples that have one
+    (the vessel set's ``flow`` column), on one log colour scale per study."""
+    import pandas as pd
+    flows = {}
+    for i, graph in graphs.items():
+        s = cohort["sample"].iloc[i]
+        table = study / "samples" / s / "branches.csv"
+        try:
+            columns = pd.read_csv(table, nrows=0).columns
+            if "flow" in columns:
+                f = pd.read_csv(table, usecols=["flow"])["flow"].to_numpy(float)
+                if len(f) == graph.n_edges:
+                    flows[s] = (graph, f)
+        except Exception:  # no table, no flow picture
+            continue
+    if not flows:
+        return {}
+    positive = np.concatenate([f[np.isfinite(f) & (f > 0)] for _, f in flows.values()])
+    if not len(positive):
+        return {}
+    clim = [float(v) for v in np.percentile(positive, [1, 99])]
+    scale_file = folder / "flow-colour-scale.json"
+    same_scale = scale_file.exists() and json.loads(scale_file.read_text()) == clim
+    out = {}
+    for s, (graph, f) in flows.items():
+        pic = folder / f"{s}-flow.png"
+        if not (pic.exists() and same_scale):
+            render_flow_thumbnail(graph, f, pic, clim)
+        out[s] = f"figures/gallery/{s}-flow.png"
+    write_json(scale_file, clim)
+    return out
+
+
+def render_flow_thumbnail(graph, flow, path, clim, size=(4.0, 4.0), dpi=90):
+    """The centrelines coloured by modelled flow on a fixed log scale ``clim``."""
+    import matplotlib
+    matplotlib.use("Agg", force=False)
+    from matplotlib.colors import LogNorm
+
+    from .figures import new_axes, plot_flow, save
+    fig, ax = new_axes(1, 1, size=size, fixed=True)
+    lc = plot_flow(graph, flow, ax[0, 0], unit=graph.unit)
+    lo, hi = clim
+    lc.set_norm(LogNorm(vmin=lo, vmax=hi if hi > lo else lo * 10))
+    ax[0, 0].tick_params(labelsize=6)
+    from matplotlib.ticker import FuncFormatter, NullFormatter
+
+    from ..results import format_value
+    cb = fig.colorbar(lc, ax=ax[0, 0], shrink=0.6)
+    cb.set_label("flow (Poiseuille model)", fontsize=7)
+    cb.ax.yaxis.set_major_formatter(FuncFormatter(lambda v, _: format_value(v, 2)))
+    cb.ax.yaxis.set_minor_formatter(NullFormatter())
+    cb.ax.tick_params(labelsize=6)
+    save(fig, path, dpi=dpi)
 
 
 def _graph_file(folder):
