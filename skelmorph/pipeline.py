@@ -258,7 +258,7 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
             prune_factor=prune_factor, min_branch_length=min_branch_length,
             merge_junctions=merge_junctions, extend_tips=extend_tips, smoothing=smoothing,
             memory_limit=memory_limit, workers=workers, scheduler=scheduler, bar=bar,
-            timings=timings)
+            timings=timings, sets=sets)
         summary["source"] = source
         for line in prep_warnings:
             warnings.warn(line, SegmentationWarning, stacklevel=2)
@@ -413,7 +413,7 @@ def _graph_in_memory(image, source, spacing, unit, sets, bar, timings, root, roo
 
 def _graph_in_slabs(volume, out, *, threshold, dark, label, prune, prune_factor,
                     min_branch_length, merge_junctions, extend_tips, smoothing, memory_limit,
-                    workers, scheduler, bar, timings):
+                    workers, scheduler, bar, timings, sets=()):
     """Survey, thin in slabs and build the graph of a scan too large for memory."""
     from .chunked import chunked_graph, default_memory_limit, parse_memory, survey, work_folder
     t0 = time.perf_counter()
@@ -448,6 +448,17 @@ def _graph_in_slabs(volume, out, *, threshold, dark, label, prune, prune_factor,
         halo=info["halo"] * float(volume.spacing[0]),
     )
     bar.update(note="measured")
+    if "bone" in sets:
+        from .chunked import chunked_bone_measures
+        t0 = time.perf_counter()
+        summary.update(chunked_bone_measures(volume, seg, volume.spacing, info["foreground"],
+                                             info["cavities"](), limit))
+        summary.setdefault("skipped_measures", {})["bone"] = (
+            "Tb.Th, Tb.Sp, Tb.N and DA need the whole scan in memory and were not computed "
+            "in slabs; BV/TV, BS/BV, Conn.D and SMI were")
+        summary["measure_sets"] = ["bone"]
+        timings["bone"] = time.perf_counter() - t0
+        bar.update(note="bone measures")
     return graph, summary, info["warnings"]
 
 

@@ -44,6 +44,8 @@ BONE_KEYS = ("BV/TV", "BS/BV", "Tb.Th", "Tb.Th.SD", "Tb.Sp", "Tb.Sp.SD", "Tb.N",
 
 
 def _check_3d(mask):
+    if hasattr(mask, "seg") and getattr(mask, "ndim", None) == 3:
+        return mask  # a lazy mask read by plane ranges (skelmorph.chunked.LazyMask)
     mask = np.asarray(mask)
     if mask.ndim != 3:
         raise InputError(f"bone measures need a 3D image; this one is {mask.ndim}D "
