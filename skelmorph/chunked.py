@@ -58,7 +58,9 @@ from .errors import InputError
 from .io import _available_memory, atomic_path
 
 __all__ = ["parse_memory", "plan_slabs", "Segmenter", "survey", "chunked_skeleton",
-           "chunked_cavities", "chunked_branch_volumes", "SLAB_ALIGN", "BYTES_PER_VOXEL"]
+           "chunked_cavities", "chunked_branch_volumes", "chunked_graph",
+           "chunked_bone_measures", "slab_volume", "check_slab_options", "LazyMask",
+           "SLAB_ALIGN", "BYTES_PER_VOXEL"]
 
 #: Slabs start on multiples of this many planes (twice the thinning's slab),
 #: so that the thinning's sweep order is the same in a slab as in the whole.

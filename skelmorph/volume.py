@@ -62,10 +62,6 @@ class Volume:
     def ndim(self):
         return len(self.shape)
 
-    @property
-    def nbytes(self):
-        return int(np.prod(self.shape, dtype=np.float64)) * self.dtype.itemsize
-
     def planes(self, start, stop):
         """Planes ``start:stop`` of the first axis, as an in-memory array."""
         raise NotImplementedError
