@@ -176,9 +176,11 @@ def _raw_graph_of_voxels(coords, shape, spacing, vox_r, timings):
             both = both[np.lexsort((both[:, 1], both[:, 0]))]
             link_start = np.searchsorted(both[:, 0], np.arange(n + 1))
             order = walk_paths(n, link_start, both[:, 1], starts)
+            del both, link_start  # large temporaries go as soon as they are used
             olab = lab[order]
             cut = np.flatnonzero(np.diff(olab)) + 1
             bounds = np.concatenate([[0], cut, [len(order)]])
+            del olab, cut, lab
             # Node neighbours of each path voxel (first and last, in link order).
             nl = links[is_node[links[:, 0]] != is_node[links[:, 1]]]
             sv = np.where(is_node[nl[:, 0]], nl[:, 1], nl[:, 0])
@@ -192,6 +194,7 @@ def _raw_graph_of_voxels(coords, shape, spacing, vox_r, timings):
             first_att[uv] = nv[idx]
             last_att[uv] = nv[idx + cnt - 1]
             fa, la = first_att[s_vox], last_att[e_vox]
+            del first_att, last_att, nl, sv, nv, srt
         else:
             order, bounds = np.zeros(0, np.int64), np.zeros(1, np.int64)
             fa = la = np.zeros(0, np.int64)
@@ -200,6 +203,7 @@ def _raw_graph_of_voxels(coords, shape, spacing, vox_r, timings):
         nn = links[is_node[links[:, 0]] & is_node[links[:, 1]]]
         a, b = node_of_voxel[nn[:, 0]], node_of_voxel[nn[:, 1]]
         diff = np.flatnonzero(a != b)
+        del links, path_links
         if len(diff):
             key_pairs = np.sort(np.column_stack([a[diff], b[diff]]), axis=1)
             _, one = np.unique(key_pairs, axis=0, return_index=True)
