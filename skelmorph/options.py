@@ -230,6 +230,8 @@ ANALYZE_OPTIONS = (
                                           "none"]}),
     Option("thickness_map", False, _boolean, "bone: also write thickness.tif and "
            "separation.tif (diameters)", _MEAS),
+    Option("major_vein_width", None, _number(0), "venation: split VLA into major and minor "
+           "veins at this vein width", _MEAS, "length", cli={"type": float, "metavar": "W"}),
     Option("root", "thickest", _lazy_choice(_root_methods), "root rule", _TREE,
            cli={"choices": _root_methods}),
     Option("root_point", None, _root_point, "with --root point: position in (z) y x order",

@@ -138,8 +138,8 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
             min_branch_length=0.0, extend_tips=False, smoothing=2.0, merge_junctions=True,
             thinning="ordered", root="thickest", tree="shortest", n_trees=1, filtration="radial", seed=0,
             root_point=None, root_face=None, n_radii=200, paths=None, measures=None,
-            thickness_map=False, work_limit=900.0, max_paths=None, out=None, figures=True,
-            memory_limit=None, workers=1, scheduler=None, progress=False):
+            thickness_map=False, major_vein_width=None, work_limit=900.0, max_paths=None,
+            out=None, figures=True, memory_limit=None, workers=1, scheduler=None, progress=False):
     """Analyse one image end to end.
 
     Parameters
@@ -180,6 +180,9 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
         every set that applies to the image's dimensionality.
     thickness_map : bool
         With bone measures, write ``thickness.tif`` and ``separation.tif``.
+    major_vein_width : float, optional
+        With venation measures, split VLA into major and minor veins at this
+        vein width (image unit), see :func:`skelmorph.measure.venation.venation_measures`.
     paths : int, optional
         Longest path of the path-poset invariants
         (:func:`skelmorph.path_poset_invariants`), written to ``paths.json``.
@@ -228,7 +231,8 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
         merge_junctions=merge_junctions, thinning=thinning, root=root, tree=tree,
         n_trees=n_trees, filtration=filtration, seed=seed, root_point=root_point,
         root_face=root_face, n_radii=n_radii, paths=paths, measures=measures,
-        thickness_map=thickness_map, figures=figures, work_limit=work_limit,
+        thickness_map=thickness_map, major_vein_width=major_vein_width, figures=figures,
+        work_limit=work_limit,
         max_paths=max_paths, memory_limit=memory_limit), where="analysis options")
     tree = None if tree == "none" else tree
     _check_option_pairs(root, root_point, root_face, tree, n_trees)
@@ -268,7 +272,8 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
     else:
         graph, summary, mask, extra = _graph_in_memory(
             image, source, spacing, unit, sets, bar, timings, root, root_point, root_face,
-            thickness_map, prune=prune, prune_factor=prune_factor,
+            thickness_map, major_vein_width=major_vein_width, prune=prune,
+            prune_factor=prune_factor,
             min_branch_length=min_branch_length, merge_junctions=merge_junctions,
             extend_tips=extend_tips, smoothing=smoothing, thinning=thinning, roi=roi,
             channel=channel,
@@ -350,7 +355,8 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
 
 
 def _graph_in_memory(image, source, spacing, unit, sets, bar, timings, root, root_point,
-                     root_face, thickness_map, *, prune, prune_factor, min_branch_length,
+                     root_face, thickness_map, *, major_vein_width, prune, prune_factor,
+                     min_branch_length,
                      merge_junctions, extend_tips, smoothing, thinning, roi, channel, seg):
     """Segment, build the graph and run the field measures in memory."""
     t0 = time.perf_counter()
@@ -402,7 +408,8 @@ def _graph_in_memory(image, source, spacing, unit, sets, bar, timings, root, roo
     timings["measure"] = time.perf_counter() - t0
     bar.update(note="measured")
     extra = _field_measures(sets, graph, mask, spacing, unit, roi_mask, thickness_map,
-                            timings, bar, root_rule=(root, root_point, root_face))
+                            timings, bar, root_rule=(root, root_point, root_face),
+                            major_vein_width=major_vein_width)
     for name, local in extra["maps"].items():  # maps of the ROI box, put back in the image
         full = np.zeros(array.shape, local.dtype)
         full[prep.box] = local
@@ -533,7 +540,7 @@ def _check_sets(sets, ndim):
 
 
 def _field_measures(sets, graph, mask, spacing, unit, roi, thickness_map, timings, bar,
-                    root_rule=("thickest", None, None)):
+                    root_rule=("thickest", None, None), major_vein_width=None):
     """Bone, vessel and venation measure sets, as asked."""
     out = {"summary": {}, "branch_columns": {}, "bifurcations": None, "maps": {}, "tables": {}}
     if not sets:
@@ -589,7 +596,8 @@ def _field_measures(sets, graph, mask, spacing, unit, roi, thickness_map, timing
             from .measure.venation import venation_measures
             origin = graph.meta.get("roi_origin")
             out["summary"].update(venation_measures(graph, mask, spacing, unit, region=roi,
-                                                    origin=origin))
+                                                    origin=origin,
+                                                    major_width=major_vein_width))
             lsum, ltable = loop_hierarchy(graph, mask, spacing, region=roi, origin=origin)
             out["summary"].update(lsum)
             out["tables"]["loop_hierarchy"] = ltable

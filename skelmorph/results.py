@@ -122,6 +122,10 @@ _LIST = [
        "the outlets that take most"),
     # venation (Sack & Scoffoni 2013, New Phytol 198:983)
     _m("VLA", "density", "{u} {u}^-2", "vein length per area of lamina"),
+    _m("major_VLA", "density", "{u} {u}^-2", "length of veins at least --major-vein-width wide "
+       "per area of lamina (Sack & Scoffoni 2013)"),
+    _m("minor_VLA", "density", "{u} {u}^-2", "length of veins narrower than --major-vein-width "
+       "per area of lamina"),
     _m("areole_count", "count", "1", "areoles: regions of lamina enclosed by veins"),
     _m("areole_density", "density", "{u}^-2", "areoles per area of lamina"),
     _m("mean_areole_area", "area", "{u}^2", "mean area of an areole"),

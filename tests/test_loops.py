@@ -112,3 +112,16 @@ def test_areole_shapes_of_square_and_round_areoles():
     np.testing.assert_allclose(table["circularity"], 1.0, atol=0.03)
     aniso, _ = areole_shapes(plate, (1.0, 2.0))
     assert np.isnan(aniso["mean_areole_perimeter"])
+
+
+def test_major_and_minor_vein_length_by_width():
+    """VLA split at a vein width (Sack & Scoffoni 2013's major/minor veins):
+    on the invented leaf the four thin inner lines (3 and 5 px) are minor,
+    each 160 px long between the outer veins, by construction."""
+    from skelmorph.measure.venation import venation_measures
+    img = _leaf(rows=[13, 3, 11, 3, 13], cols=[13, 5, 9, 5, 13])
+    g = sm.skeleton_graph(img)
+    out = venation_measures(g, img, (1.0, 1.0), major_width=7.0)
+    assert out["major_VLA"] + out["minor_VLA"] == pytest.approx(out["VLA"])
+    assert out["minor_VLA"] * out["lamina_area"] == pytest.approx(4 * 160, rel=0.03)
+    assert "major_VLA" not in venation_measures(g, img, (1.0, 1.0))
