@@ -288,47 +288,85 @@ class _LogCollector:
         self.logger.removeHandler(self.handler)
 
 
-def _read_tiff(path):
+class _TiffHeader(NamedTuple):
+    shape: tuple
+    dtype: np.dtype
+    spacing: tuple  # (z, y, x), z None when only the plane is calibrated; or None
+    unit: str
+    is_rgb: bool
+    dataoffset: int  # None unless the image data is one contiguous block
+
+
+def _tiff_header(path):
+    """What a TIFF declares (shape, type, voxel size, colour, data offset),
+    read from its header only; a damaged header is an ImageReadError."""
     import tifffile
 
     try:
         with _LogCollector() as log, tifffile.TiffFile(path) as tif:
             series = tif.series[0]
-            shape, dtype = series.shape, series.dtype
             yx, z, unit = _tiff_spacing(tif)
             photometric = getattr(tif.pages[0], "photometric", None)
-            contiguous = series.dataoffset is not None
-            damaged = [m for m in log.messages if "invalid" in m or "corrupt" in m or "truncat" in m]
-            if damaged:
-                raise ImageReadError(f"TIFF {path} is damaged or truncated ({damaged[0]})")
-            check_declared_size(shape, dtype, f"TIFF {path}")
-            if contiguous:
-                need = series.dataoffset + int(np.prod(shape)) * np.dtype(dtype).itemsize
-                size = os.path.getsize(path)
-                if need > size:
-                    raise ImageReadError(f"TIFF {path} is truncated: its image data needs {need} "
-                                         f"bytes but the file has {size}")
-        is_rgb = photometric is not None and int(photometric) == 2
+            header = _TiffHeader(tuple(series.shape), np.dtype(series.dtype),
+                                 (z,) + yx if yx is not None else None, unit,
+                                 photometric is not None and int(photometric) == 2,
+                                 series.dataoffset)
+    except Exception as exc:  # noqa: BLE001 - tifffile raises many kinds
+        raise ImageReadError(f"cannot read TIFF {path}: {exc.__class__.__name__}: {exc}. "
+                             f"The file may be truncated or not a TIFF.") from None
+    damaged = [m for m in log.messages if "invalid" in m or "corrupt" in m or "truncat" in m]
+    if damaged:
+        raise ImageReadError(f"TIFF {path} is damaged or truncated ({damaged[0]})")
+    return header
+
+
+def _npy_header(path):
+    """(shape, fortran_order, dtype, data offset) of a .npy file, from its header."""
+    try:
+        with open(path, "rb") as fh:
+            version = np.lib.format.read_magic(fh)
+            read_header = (np.lib.format.read_array_header_1_0 if version == (1, 0)
+                           else np.lib.format.read_array_header_2_0)
+            shape, fortran, dtype = read_header(fh)
+            return shape, fortran, dtype, fh.tell()
+    except Exception as exc:  # noqa: BLE001
+        raise ImageReadError(f"cannot read {path} as a .npy array: {exc}") from None
+
+
+def _check_data_length(path, offset, shape, dtype, what):
+    """Refuse a file shorter than the data its header declares."""
+    need = int(offset) + int(np.prod(shape, dtype=np.float64)) * np.dtype(dtype).itemsize
+    size = os.path.getsize(path)
+    if need > size:
+        raise ImageReadError(f"{what} {path} is truncated: its image data needs {need} bytes "
+                             f"but the file has {size}")
+
+
+def _read_tiff(path):
+    import tifffile
+
+    h = _tiff_header(path)
+    check_declared_size(h.shape, h.dtype, f"TIFF {path}")
+    contiguous = h.dataoffset is not None
+    if contiguous:
+        _check_data_length(path, h.dataoffset, h.shape, h.dtype, "TIFF")
+    try:
         array = None
-        if contiguous and not is_rgb:
+        if contiguous and not h.is_rgb:
             # Large uncompressed volumes are memory-mapped instead of loaded.
             try:
                 array = tifffile.memmap(path, mode="r")
-                if array.shape != shape:
+                if array.shape != h.shape:
                     array = None
             except Exception:  # noqa: BLE001 - fall back to a normal read
                 array = None
         if array is None:
             array = tifffile.imread(path)
-    except (ImageReadError, InputError):
-        raise
     except Exception as exc:  # noqa: BLE001 - tifffile raises many kinds
         raise ImageReadError(f"cannot read TIFF {path}: {exc.__class__.__name__}: {exc}. "
                              f"The file may be truncated or not a TIFF.") from None
-    # (z, y, x) with z None when only the plane is calibrated; read_image keeps
-    # the last ndim entries, so a 2D image uses (y, x) only.
-    spacing = (z,) + yx if yx is not None else None
-    return array, spacing, unit, is_rgb
+    # read_image keeps the last ndim entries of the spacing, so a 2D image uses (y, x) only.
+    return array, h.spacing, h.unit, h.is_rgb
 
 
 def _plain_header(path):
@@ -387,13 +425,9 @@ def _read_file(path):
     if suffix in _TIFF_SUFFIXES:
         return _read_tiff(path)
     if suffix == ".npy":
+        shape, _, dtype, _ = _npy_header(path)  # the header first: refuse before mapping
+        check_declared_size(shape, dtype, f"array {path}")
         try:
-            with open(path, "rb") as fh:  # the header first: refuse before mapping
-                version = np.lib.format.read_magic(fh)
-                read_header = (np.lib.format.read_array_header_1_0 if version == (1, 0)
-                               else np.lib.format.read_array_header_2_0)
-                shape, _, dtype = read_header(fh)
-            check_declared_size(shape, dtype, f"array {path}")
             array = np.load(path, mmap_mode="r", allow_pickle=False)
             return array, None, None, False
         except InputError:

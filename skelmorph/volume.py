@@ -19,14 +19,13 @@ data-access strategies. Nat Methods 18:1496-1498).  Axes other than z, y, x
 
 from __future__ import annotations
 
-import os
 from pathlib import Path
 
 import numpy as np
 
 from .errors import ImageReadError
-from .io import (IMAGE_SUFFIXES, _LogCollector, _natural_key, _read_file, _tiff_spacing,
-                 resolve_spacing)
+from .io import (IMAGE_SUFFIXES, _check_data_length, _natural_key, _npy_header, _read_file,
+                 _tiff_header, resolve_spacing)
 
 __all__ = ["Volume", "ArrayVolume", "open_volume", "is_zarr_store", "write_ome_zarr"]
 
@@ -240,50 +239,22 @@ def _open_zarr(path):
 
 
 def _open_tiff(path):
-    import tifffile
-    try:
-        with _LogCollector() as log, tifffile.TiffFile(path) as tif:
-            series = tif.series[0]
-            shape, dtype = series.shape, series.dtype
-            yx, z, unit = _tiff_spacing(tif)
-            contiguous = series.dataoffset is not None
-            photometric = getattr(tif.pages[0], "photometric", None)
-            damaged = [m for m in log.messages if "invalid" in m or "corrupt" in m or "truncat" in m]
-    except Exception as exc:  # noqa: BLE001 - tifffile raises many kinds
-        raise ImageReadError(f"cannot read TIFF {path}: {exc.__class__.__name__}: {exc}. "
-                             f"The file may be truncated or not a TIFF.") from None
-    if damaged:
-        raise ImageReadError(f"TIFF {path} is damaged or truncated ({damaged[0]})")
-    if photometric is not None and int(photometric) == 2:
+    h = _tiff_header(path)
+    if h.is_rgb:
         raise ImageReadError(f"TIFF {path} is a colour image; large scans are read as one grey "
                              "or binary channel")
-    spacing = (z,) + yx if yx is not None else None
-    if contiguous:
-        need = series.dataoffset + int(np.prod(shape)) * np.dtype(dtype).itemsize
-        if need > os.path.getsize(path):
-            raise ImageReadError(f"TIFF {path} is truncated: its image data needs {need} bytes "
-                                 f"but the file has {os.path.getsize(path)}")
-        return RawFileVolume(path, series.dataoffset, shape, dtype, spacing, unit)
-    return TiffPagesVolume(path, shape, dtype, spacing, unit)
+    if h.dataoffset is not None:
+        _check_data_length(path, h.dataoffset, h.shape, h.dtype, "TIFF")
+        return RawFileVolume(path, h.dataoffset, h.shape, h.dtype, h.spacing, h.unit)
+    return TiffPagesVolume(path, h.shape, h.dtype, h.spacing, h.unit)
 
 
 def _open_npy(path):
-    try:
-        with open(path, "rb") as fh:
-            version = np.lib.format.read_magic(fh)
-            read_header = (np.lib.format.read_array_header_1_0 if version == (1, 0)
-                           else np.lib.format.read_array_header_2_0)
-            shape, fortran, dtype = read_header(fh)
-            offset = fh.tell()
-    except Exception as exc:  # noqa: BLE001
-        raise ImageReadError(f"cannot read {path} as a .npy array: {exc}") from None
+    shape, fortran, dtype, offset = _npy_header(path)
     if fortran or dtype.hasobject:
         raise ImageReadError(f"{path}: large .npy arrays must be stored in C order, "
                              "without Python objects")
-    need = offset + int(np.prod(shape, dtype=np.float64)) * dtype.itemsize
-    if need > os.path.getsize(path):
-        raise ImageReadError(f"{path} is truncated: its array needs {need} bytes but the file "
-                             f"has {os.path.getsize(path)}")
+    _check_data_length(path, offset, shape, dtype, "array")
     return RawFileVolume(path, offset, shape, dtype, None, None)
 
 
