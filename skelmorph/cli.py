@@ -155,6 +155,9 @@ def summary_lines(image, s):
         lines.append(f"  region of interest: {s['roi']['source']}, "
                      f"{format_value(s['roi']['volume'])} {u}^{len(s['image_shape'])} "
                      f"({s['roi']['fraction_of_image']:.0%} of the image)")
+    if s.get("n_chunks", 1) > 1:
+        lines.append(f"  analysed in {s['n_chunks']} slabs read from the file (halo "
+                     f"{format_value(s['halo'])} {u}); same graph as in memory")
     for key in _PRINTED:
         if key in s:
             unit = units.get(key, "")

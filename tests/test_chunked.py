@@ -9,6 +9,7 @@ with structures thick enough to make the halo grow.
 """
 
 import json
+import re
 import subprocess
 import sys
 
@@ -222,6 +223,15 @@ def test_cli_refuses_what_slabs_cannot_do(tmp_path):
     run = subprocess.run([sys.executable, "-m", "skelmorph.cli", "analyze", str(path),
                           "--memory-limit", "10kB", "-q"], capture_output=True, text=True)
     assert run.returncode == 2 and "per slab" in run.stderr
+    big = foam(size=96.0, cell=16.0, rod_radius=2.5, seed=0)
+    path = tmp_path / "big.tif"
+    write_tiff(path, big.mask.astype(np.uint8), big.spacing)
+    limit = str(_planes_limit(big.mask.shape, 80))
+    run = subprocess.run([sys.executable, "-m", "skelmorph.cli", "analyze", str(path),
+                          "--memory-limit", limit, "--n-radii", "0", "--no-figures", "-q",
+                          "-o", str(tmp_path / "out")], capture_output=True, text=True)
+    assert run.returncode == 0, run.stderr
+    assert re.search(r"analysed in \d+ slabs read from the file", run.stdout)
 
 
 def test_slabs_on_a_dask_cluster(tmp_path):
