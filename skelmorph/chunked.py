@@ -425,13 +425,15 @@ def chunked_skeleton(volume, seg, spacing, *, memory_limit, workdir, halo=None, 
 
 # ----------------------------------------------------------------------------- other passes
 
-def chunked_cavities(volume, seg, slabs):
+def chunked_cavities(volume, seg, slabs, progress=False):
     """Enclosed background components of the segmented volume, counted slab
     by slab: face-connected labels in each core, joined across slab faces
     with a union-find, and those that touch the volume's faces left out
     (as :func:`skelmorph.segment.count_cavities`)."""
     from scipy import ndimage as ndi
 
+    from .progress import Progress
+    bar = Progress(len(slabs), "cavities", enabled=bool(progress))
     parent = [0]  # label 0 = structure
     touches = [True]
 
@@ -466,14 +468,16 @@ def chunked_cavities(volume, seg, slabs):
                     parent[rj] = ri
                     touches[ri] = touches[ri] or touches[rj]
         prev_last = glob[-1].copy()
+        bar.update()
     roots = {find(i) for i in range(1, len(parent))}
     return sum(1 for r in roots if not touches[r])
 
 
-def chunked_branch_volumes(volume, seg, spacing, slabs, halo):
+def chunked_branch_volumes(volume, seg, spacing, slabs, halo, progress=False):
     """A ``volumes`` callable for :func:`skelmorph.radius.equivalent_radius`:
     each branch's voxels counted slab by slab, every slab flooded with its
     halo so that voxels near a face go to the same branch as in the whole."""
+    from .progress import Progress
     from .radius import branch_volumes
 
     sp = np.asarray(spacing, float)
@@ -482,6 +486,7 @@ def chunked_branch_volumes(volume, seg, spacing, slabs, halo):
         total = np.zeros(n_edges)
         zidx = np.rint(raw_points[:, 0] / sp[0]).astype(np.int64)
         nz = volume.shape[0]
+        bar = Progress(len(slabs), "branch radii", enabled=bool(progress))
         for a, b in slabs:
             lo, hi = _slab_extent(a, b, halo, nz)
             pick = (zidx >= lo) & (zidx < hi)
@@ -490,6 +495,7 @@ def chunked_branch_volumes(volume, seg, spacing, slabs, halo):
             shift[0] = lo * sp[0]
             total += branch_volumes(mask, sp, raw_points[pick] - shift, label_of_point[pick],
                                     n_edges, count_from=a - lo, count_to=b - lo)
+            bar.update()
         return total
     return volumes
 
@@ -606,12 +612,12 @@ def chunked_graph(volume, seg, *, memory_limit, workdir, halo=None, workers=1, s
 
     def cavities():  # counted once, when first asked for
         if "n" not in found:
-            found["n"] = chunked_cavities(volume, seg, cs.slabs)
+            found["n"] = chunked_cavities(volume, seg, cs.slabs, progress)
         return found["n"]
 
     graph = graph_from_voxels(
         cs.coords, cs.radii, volume.shape, spacing, cavities=cavities,
-        volumes=chunked_branch_volumes(volume, seg, spacing, cs.slabs, cs.halo),
+        volumes=chunked_branch_volumes(volume, seg, spacing, cs.slabs, cs.halo, progress),
         unit=volume.unit if unit is None else unit, prune=prune, prune_factor=prune_factor,
         min_branch_length=min_branch_length / scale, merge_junctions=merge_junctions,
         extend_tips=extend_tips, smoothing=smoothing, timings=timings,
