@@ -57,7 +57,7 @@ import numpy as np
 from .errors import InputError
 from .io import _available_memory, atomic_path
 
-__all__ = ["parse_memory", "plan_slabs", "Segmenter", "survey", "chunked_skeleton",
+__all__ = ["parse_memory", "memory_limit_bytes", "plan_slabs", "Segmenter", "survey", "chunked_skeleton",
            "chunked_cavities", "chunked_branch_volumes", "chunked_graph",
            "chunked_bone_measures", "slab_volume", "check_slab_options", "LazyMask",
            "SLAB_ALIGN", "BYTES_PER_VOXEL"]
@@ -66,7 +66,8 @@ __all__ = ["parse_memory", "plan_slabs", "Segmenter", "survey", "chunked_skeleto
 #: so that the thinning's sweep order is the same in a slab as in the whole.
 SLAB_ALIGN = 16
 #: Working memory of one slab per voxel (input, mask, float32 distances,
-#: thinning flags and sort order); measured by ``scripts/bench.py --only chunks``.
+#: thinning flags and sort order): one slab task on a 512^2 foam measured 8-9
+#: bytes/voxel (VmHWM of a child process); 16 leaves room for denser scans.
 BYTES_PER_VOXEL = 16
 #: Halo depth in largest radii (see the module docstring).
 HALO_RADII = 4
@@ -101,8 +102,11 @@ def parse_memory(value):
     return int(size)
 
 
-def default_memory_limit():
-    """Half the memory available now (all of it is never ours to take)."""
+def memory_limit_bytes(value=None):
+    """The memory limit in bytes: ``value`` parsed, or by default half the
+    memory available now (all of it is never ours to take)."""
+    if value is not None:
+        return parse_memory(value)
     have = _available_memory()
     return int(DEFAULT_MEMORY_FRACTION * have) if have else 8 * 10**9
 
@@ -215,12 +219,9 @@ def survey(volume, *, threshold=None, dark=False, label=None, slab_planes=32, pr
                                   minlength=counts.size)
         bar.update()
     if binary:
-        if lo == hi:
-            raise InputError("the mask is empty (no foreground voxels); check the threshold "
-                             "or whether the structure is dark on a bright background (--dark)"
-                             if not hi else
-                             "the mask is all foreground (no background voxels): nothing to "
-                             "skeletonize; check the threshold or crop to the structure")
+        if lo == hi:  # one value: no structure (0) or nothing but structure
+            from .segment import check_foreground_count
+            check_foreground_count(0 if not hi else 1, 1)
         return Segmenter("binary", float(lo), dark,
                          [{"step": "binary input", "structure": "low value" if dark
                            else "high value"}])
@@ -510,7 +511,7 @@ def slab_volume(path, spacing, unit, memory_limit, sets):
     """The volume at ``path`` when it is to be analysed in slabs, else None.
 
     A 3D TIFF, ``.npy``, slice folder or OME-Zarr store goes to slabs when
-    its analysis in memory would need more than the memory limit.
+    its analysis in memory would need more than ``memory_limit`` bytes.
     """
     import warnings
 
@@ -525,19 +526,20 @@ def slab_volume(path, spacing, unit, memory_limit, sets):
         regular = False
     if not regular:  # read_image says why (a pipe, a device, a 2D format)
         return None
-    with warnings.catch_warnings():  # read_image or the second open says it
-        warnings.simplefilter("ignore")
+    with warnings.catch_warnings(record=True) as said:  # read_image says it otherwise
+        warnings.simplefilter("always")
         try:
             vol = open_volume(path, spacing, unit)
         except SkelmorphError:
             if is_zarr_store(path):
                 raise
             return None  # read_image gives the reason, or reads a 2D image
-    limit = parse_memory(memory_limit) if memory_limit is not None else default_memory_limit()
     need = float(np.prod(vol.shape, dtype=np.float64)) * IN_MEMORY_BYTES_PER_VOXEL[bool(sets)]
-    if need <= limit:
+    if need <= memory_limit:
         return None
-    return open_volume(path, spacing, unit)
+    for w in said:  # the voxel-size warnings of the file, once
+        warnings.warn(w.message, w.category, stacklevel=3)
+    return vol
 
 
 #: Options that need more than one voxel at a time, with their flags.
@@ -599,13 +601,8 @@ def chunked_graph(volume, seg, *, memory_limit, workdir, halo=None, workers=1, s
     spacing = tuple(s / scale for s in volume.spacing)
     cs = chunked_skeleton(volume, seg, spacing, memory_limit=memory_limit, workdir=workdir,
                           halo=halo, workers=workers, scheduler=scheduler, progress=progress)
-    total = int(np.prod(volume.shape, dtype=np.int64))
-    if cs.foreground == 0:
-        raise InputError("the mask is empty (no foreground voxels); check the threshold or "
-                         "whether the structure is dark on a bright background (--dark)")
-    if cs.foreground == total:
-        raise InputError("the mask is all foreground (no background voxels): nothing to "
-                         "skeletonize; check the threshold or crop to the structure")
+    from .segment import check_foreground_count
+    check_foreground_count(cs.foreground, int(np.prod(volume.shape, dtype=np.int64)))
     if timings is not None:
         timings["skeletonize"] = time.perf_counter() - t0
     found = {}
@@ -634,6 +631,7 @@ class LazyMask:
     measures of :mod:`skelmorph.measure.bone`."""
 
     ndim = 3
+    reads_planes = True  # what skelmorph.measure.bone checks for
 
     def __init__(self, volume, seg, foreground):
         self.volume, self.seg, self.foreground = volume, seg, int(foreground)

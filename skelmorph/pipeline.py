@@ -245,7 +245,8 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
     volume = None
     if isinstance(image, (str, Path)):
         source = str(image)
-        from .chunked import slab_volume
+        from .chunked import memory_limit_bytes, slab_volume
+        memory_limit = memory_limit_bytes(memory_limit)  # decided once, used for the plan too
         volume = slab_volume(image, spacing, unit, memory_limit, sets)
         if volume is None:
             t0 = time.perf_counter()
@@ -422,12 +423,12 @@ def _graph_in_slabs(volume, out, *, threshold, dark, label, prune, prune_factor,
                     min_branch_length, merge_junctions, extend_tips, smoothing, memory_limit,
                     workers, scheduler, bar, timings, sets=()):
     """Survey, thin in slabs and build the graph of a scan too large for memory."""
-    from .chunked import chunked_graph, default_memory_limit, parse_memory, survey, work_folder
+    from .chunked import chunked_graph, survey, work_folder
     t0 = time.perf_counter()
     seg = survey(volume, threshold=threshold, dark=dark, label=label, progress=bar.enabled)
     timings["read"] = time.perf_counter() - t0
     bar.update(note="surveyed")
-    limit = parse_memory(memory_limit) if memory_limit is not None else default_memory_limit()
+    limit = memory_limit  # bytes, decided by analyze()
     graph, info = chunked_graph(
         volume, seg, memory_limit=limit, workdir=work_folder(out, volume.source),
         workers=workers, scheduler=scheduler, timings=timings, progress=bar.enabled, prune=prune,

@@ -46,14 +46,18 @@ def as_bool_mask(binary):
 
 def check_mask(mask):
     """Raise :class:`InputError` if ``mask`` has no foreground or no background."""
-    n = int(np.count_nonzero(mask))
+    check_foreground_count(int(np.count_nonzero(mask)), mask.size)
+    return mask
+
+
+def check_foreground_count(n, total):
+    """Raise :class:`InputError` for 0 or ``total`` foreground voxels out of ``total``."""
     if n == 0:
         raise InputError("the mask is empty (no foreground voxels); check the threshold "
                          "or whether the structure is dark on a bright background (--dark)")
-    if n == mask.size:
+    if n == total:
         raise InputError("the mask is all foreground (no background voxels): nothing to "
                          "skeletonize; check the threshold or crop to the structure")
-    return mask
 
 
 def _voxel_count(size, spacing):

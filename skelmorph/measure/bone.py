@@ -44,7 +44,7 @@ BONE_KEYS = ("BV/TV", "BS/BV", "Tb.Th", "Tb.Th.SD", "Tb.Sp", "Tb.Sp.SD", "Tb.N",
 
 
 def _check_3d(mask):
-    if hasattr(mask, "seg") and getattr(mask, "ndim", None) == 3:
+    if getattr(mask, "reads_planes", False):
         return mask  # a lazy mask read by plane ranges (skelmorph.chunked.LazyMask)
     mask = np.asarray(mask)
     if mask.ndim != 3:
