@@ -27,10 +27,9 @@ labels just beyond the vein's edge on both sides of its inner points.
 from __future__ import annotations
 
 import numpy as np
-from scipy import ndimage as ndi
 
 from ..errors import InputError
-from .venation import lamina_mask
+from .venation import areole_labels, lamina_mask
 
 __all__ = ["loop_hierarchy", "partition_asymmetry"]
 
@@ -40,21 +39,6 @@ def partition_asymmetry(r, s):
     r, s = np.asarray(r, float), np.asarray(s, float)
     with np.errstate(invalid="ignore", divide="ignore"):
         return np.where(r + s > 2, np.abs(r - s) / (r + s - 2), np.nan)
-
-
-def _areoles(veins, lamina):
-    """Labels of the enclosed gaps (4-connected, not touching the lamina edge)."""
-    labels, n = ndi.label(lamina & ~veins)
-    edge = ~lamina
-    edge[0, :] = edge[-1, :] = edge[:, 0] = edge[:, -1] = True
-    touching = np.unique(labels[ndi.binary_dilation(edge, np.ones((3, 3), bool)) & (labels > 0)])
-    keep = np.ones(n + 1, bool)
-    keep[0] = False
-    keep[touching] = False
-    # Renumber the kept areoles 1..k; everything else 0.
-    new = np.zeros(n + 1, np.int64)
-    new[keep] = np.arange(1, int(keep.sum()) + 1)
-    return new[labels], int(keep.sum())
 
 
 def _sides(graph, labels, spacing, shift):
@@ -129,7 +113,7 @@ def loop_hierarchy(graph, veins, spacing, region=None, origin=None):
     spacing = np.asarray(spacing, float)
     shift = np.zeros(2) if origin is None else np.asarray(origin, float) * spacing
     lamina, _ = lamina_mask(veins, region)
-    labels, n_areoles = _areoles(veins, lamina)
+    labels, n_areoles = areole_labels(veins, lamina)
     areas = np.bincount(labels.ravel(), minlength=n_areoles + 1)[1:] * float(np.prod(spacing))
     sides = _sides(graph, labels, spacing, shift)
     width = 2.0 * np.asarray(graph.branch_radius(), float) * np.ones(graph.n_edges)

@@ -12,7 +12,7 @@ from scipy import ndimage as ndi
 
 from ..errors import InputError
 
-__all__ = ["venation_measures", "lamina_mask", "areole_shapes"]
+__all__ = ["venation_measures", "lamina_mask", "areole_shapes", "areole_labels"]
 
 
 def lamina_mask(veins, region=None):
@@ -35,6 +35,22 @@ def lamina_mask(veins, region=None):
             raise InputError("the region mask is empty")
         return region, "region of interest"
     return ndi.binary_fill_holes(veins), "network outline"
+
+
+def areole_labels(veins, lamina):
+    """Areoles: the lamina's gaps between veins (4-connected background) that
+    do not touch the lamina's edge or the image border, labelled 1..k (0
+    elsewhere).  Returns ``(labels, k)``."""
+    labels, n = ndi.label(lamina & ~veins)
+    edge = ~lamina
+    edge[0, :] = edge[-1, :] = edge[:, 0] = edge[:, -1] = True
+    touching = np.unique(labels[ndi.binary_dilation(edge, np.ones((3, 3), bool)) & (labels > 0)])
+    keep = np.ones(n + 1, bool)
+    keep[0] = False
+    keep[touching] = False
+    new = np.zeros(n + 1, np.int64)
+    new[keep] = np.arange(1, int(keep.sum()) + 1)
+    return new[labels], int(keep.sum())
 
 
 def venation_measures(graph, veins, spacing, unit="um", region=None, origin=None,
@@ -98,16 +114,8 @@ def venation_measures(graph, veins, spacing, unit="um", region=None, origin=None
         split = {"major_VLA": major_length / area if area > 0 else float("nan"),
                  "minor_VLA": (length - major_length) / area if area > 0 else float("nan")}
     # Areoles: enclosed background components.
-    gaps = lamina & ~veins
-    labels, n = ndi.label(gaps)  # 4-connected background
-    edge = ~lamina
-    edge[0, :] = edge[-1, :] = edge[:, 0] = edge[:, -1] = True
-    touching = np.unique(labels[ndi.binary_dilation(edge, np.ones((3, 3), bool)) & (labels > 0)])
-    sizes = np.bincount(labels.ravel(), minlength=n + 1)
-    keep = np.ones(n + 1, bool)
-    keep[0] = False
-    keep[touching] = False
-    areole_areas = sizes[keep] * pixel
+    labels, n = areole_labels(veins, lamina)
+    areole_areas = np.bincount(labels.ravel(), minlength=n + 1)[1:] * pixel
     # Free-ending veinlets: tips well inside the lamina.
     depth = ndi.distance_transform_edt(np.pad(lamina, 1), sampling=spacing)[1:-1, 1:-1]
     tips = np.flatnonzero(graph.node_degree == 1)
@@ -146,11 +154,10 @@ def areole_shapes(veins, spacing, region=None):
     """
     from skimage.measure import regionprops
 
-    from .loops import _areoles
     veins = np.asarray(veins, bool)
     spacing = np.asarray(spacing, float)
     lamina, _ = lamina_mask(veins, region)
-    labels, n = _areoles(veins, lamina)
+    labels, n = areole_labels(veins, lamina)
     area = np.bincount(labels.ravel(), minlength=n + 1)[1:] * float(np.prod(spacing))
     perimeter = np.full(n, np.nan)
     if n and np.isclose(spacing[0], spacing[1], rtol=1e-6):
