@@ -169,23 +169,22 @@ def gallery(study, cohort, labels, folder, max_gallery):
     # One colour scale for the study: the 1st-99th percentile of all radii shown.
     clim = (tuple(float(v) for v in np.percentile(np.concatenate(radii), [1, 99]))
             if radii else None)
-    scale_file = folder / "colour-scale.json"
-    same_scale = scale_file.exists() and json.loads(scale_file.read_text()) == list(clim or [])
-    items = []
+    def radius_picture(i, graph, thumb):
+        image = None
+        if graph.ndim == 2:
+            try:
+                from ..io import read_image
+                image = np.asarray(read_image(cohort["path"].iloc[i]).array)
+            except Exception:
+                image = None
+        render_thumbnail(graph, thumb, image=image, clim=clim)
+
+    items, jobs = [], []
     for i, graph in graphs.items():
         s = cohort["sample"].iloc[i]
-        thumb = folder / f"{s}.png"
-        if not (thumb.exists() and same_scale):
-            image = None
-            if graph.ndim == 2:
-                try:
-                    from ..io import read_image
-                    image = np.asarray(read_image(cohort["path"].iloc[i]).array)
-                except Exception:
-                    image = None
-            render_thumbnail(graph, thumb, image=image, clim=clim)
+        jobs.append((folder / f"{s}.png", lambda t, i=i, g=graph: radius_picture(i, g, t)))
         items.append((s, labels[i], f"figures/gallery/{s}.png"))
-    write_json(scale_file, list(clim or []))
+    _render_on_scale(folder / "colour-scale.json", clim, jobs)
     flow_pictures = _flow_gallery(study, cohort, graphs, folder)
     return [(s, g, src, flow_pictures.get(s)) for s, g, src in items]
 
@@ -212,16 +211,21 @@ def _flow_gallery(study, cohort, graphs, folder):
     if not len(positive):
         return {}
     clim = [float(v) for v in np.percentile(positive, [1, 99])]
-    scale_file = folder / "flow-colour-scale.json"
-    same_scale = scale_file.exists() and json.loads(scale_file.read_text()) == clim
-    out = {}
-    for s, (graph, f) in flows.items():
-        pic = folder / f"{s}-flow.png"
-        if not (pic.exists() and same_scale):
-            render_flow_thumbnail(graph, f, pic, clim)
-        out[s] = f"figures/gallery/{s}-flow.png"
-    write_json(scale_file, clim)
-    return out
+    _render_on_scale(folder / "flow-colour-scale.json", clim,
+                     [(folder / f"{s}-flow.png",
+                       lambda t, g=graph, f=f: render_flow_thumbnail(g, f, t, clim))
+                      for s, (graph, f) in flows.items()])
+    return {s: f"figures/gallery/{s}-flow.png" for s in flows}
+
+
+def _render_on_scale(scale_file, clim, jobs):
+    """Render each ``(path, render)`` job whose picture is missing, or all of
+    them when the study's colour scale changed; then record the scale."""
+    same = scale_file.exists() and json.loads(scale_file.read_text()) == list(clim or [])
+    for path, render in jobs:
+        if not (path.exists() and same):
+            render(path)
+    write_json(scale_file, list(clim or []))
 
 
 def render_flow_thumbnail(graph, flow, path, clim, size=(4.0, 4.0), dpi=90):
