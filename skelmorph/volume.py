@@ -79,12 +79,11 @@ class Volume:
 
 
 class ArrayVolume(Volume):
-    """An ndarray or a memory map."""
+    """An array already in memory (or any array-like sliced by planes)."""
 
-    def __init__(self, array, spacing, unit, source="array", kind="array"):
+    def __init__(self, array, spacing, unit, source="array"):
         super().__init__(array.shape, array.dtype, spacing, unit, source)
         self.array = array
-        self.kind = kind
 
     def planes(self, start, stop):
         return np.array(self.array[start:stop])
