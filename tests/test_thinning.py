@@ -346,3 +346,84 @@ def test_processing_choices_recorded():
     assert g2.meta["thinning"] == "lee" and g2.meta["resampled_isotropic"] is True
     with pytest.raises(sm.SkelmorphError):
         sm.skeleton_graph(ph.mask, method="bogus")
+
+
+# ------------------------------------------------------------- surface thinning
+
+def _sheet_voxels(skel):
+    """Skeleton voxels with two or more background pieces around them."""
+    from skelmorph.thinning import background_components
+    p = np.pad(skel, 1)
+    return sum(background_components(p[z - 1:z + 2, y - 1:y + 2, x - 1:x + 2]) >= 2
+               for z, y, x in np.argwhere(p))
+
+
+@settings(max_examples=25, deadline=None)
+@given(seed=st.integers(0, 10**6), fill=st.floats(0.3, 0.8),
+       aniso=st.sampled_from([(1.0, 1.0, 1.0), (1.6, 1.0, 1.0), (1.0, 2.0, 2.0)]))
+def test_surface_thinning_preserves_topology(seed, fill, aniso):
+    # Reference: scikit-image's Euler number and scipy's 26-component count.
+    rng = np.random.default_rng(seed)
+    m = ndi.binary_opening(rng.random((14, 16, 15)) < fill) | (rng.random((14, 16, 15)) < 0.02)
+    sk = thin(m, aniso, keep="surfaces")
+    assert not (sk & ~m).any()
+    assert _topology(sk) == _topology(m)
+
+
+def test_surface_thinning_keeps_plates_and_their_holes():
+    # Analytic: a 5-voxel plate thins to its mid-plane; the medial surface of
+    # a box stops about half a thickness short of its rims.  A hole through
+    # the plate stays (Euler number 0 = one tunnel; scikit-image).
+    m = np.zeros((13, 60, 60), bool)
+    m[4:9, 5:55, 5:55] = True
+    curves = thin(m)
+    sk = thin(m, keep="surfaces")
+    assert np.array_equal(np.unique(np.nonzero(sk)[0]), [6])
+    assert sk.sum() >= (50 - 5 - 2) ** 2 and curves.sum() < 50
+    holed = m.copy()
+    yy, xx = np.mgrid[:60, :60]
+    holed[:, np.hypot(yy - 30, xx - 30) < 8] = False
+    sk = thin(holed, keep="surfaces")
+    assert euler_number(sk, 3) == euler_number(holed, 3) == 0
+    assert sk.sum() >= (50 - 7) ** 2 - np.pi * 10 ** 2
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_surface_thinning_leaves_rods_as_curves(seed):
+    # Round rods of radius 3-6 voxels at random orientations thin to curves:
+    # no voxel has background on two sides (common practice: the medial
+    # surface of a circular cylinder is its axis).
+    rng = np.random.default_rng(seed)
+    d = Rotation.random(random_state=seed).apply([1.0, 0, 0])
+    r = rng.uniform(3, 6)
+    c = np.array([30.0, 30, 30])
+    m = draw_tubes((60, 60, 60), (1.0, 1, 1), [c - 20 * d], [c + 20 * d], r)
+    sk = thin(m, keep="surfaces")
+    assert _sheet_voxels(sk) == 0
+    assert abs(int(sk.sum()) - int(thin(m).sum())) <= 2
+
+
+def test_surface_thinning_refuses_2d():
+    with pytest.raises(ValueError, match="3D"):
+        thin(np.ones((5, 5), bool), keep="surfaces")
+
+
+def test_surface_thinning_does_not_depend_on_threads():
+    import numba
+
+    from skelmorph import thinning
+    m = sm.phantoms.foam(size=40.0, cell=12.0, rod_radius=3.0, seed=3).mask
+    m[10:15] = True  # a plate through the foam
+    a = thin(m, keep="surfaces")
+    threads, par_min = numba.get_num_threads(), thinning.PARALLEL_MIN
+    try:
+        thinning.PARALLEL_MIN = 0
+        numba.set_num_threads(1)
+        one = thin(m, keep="surfaces")
+        numba.set_num_threads(numba.config.NUMBA_NUM_THREADS)
+        many = thin(m, keep="surfaces")
+    finally:
+        numba.set_num_threads(threads)
+        thinning.PARALLEL_MIN = par_min
+    assert np.array_equal(one, a) and np.array_equal(many, a)
+    assert _sheet_voxels(a) > 500
