@@ -137,8 +137,8 @@ def _cmd_analyze(args):
 
 #: Keys printed after 'skelmorph analyze', in this order, when present.
 _PRINTED = ("total_length", "n_branches", "n_junctions", "n_tips", "n_components", "cycle_rank",
-            "mean_radius", "volume_fraction", "BV/TV", "Tb.Th", "Tb.Sp", "Tb.N", "Conn.D", "SMI",
-            "DA", "length_density", "murray_exponent", "VLA", "areole_count",
+            "mean_radius", "volume_fraction", "BV/TV", "Tb.Th", "Tb.Sp", "Tb.N", "Tb.N.direct", "Conn.D",
+            "SMI", "DA", "pBV/TV", "rBV/TV", "length_density", "murray_exponent", "VLA", "areole_count",
             "free_ending_veinlets", "barcode_n_bars", "barcode_total_persistence",
             "max_strahler_order", "profile_max_crossings", "profile_radius_of_max_crossings")
 

@@ -70,6 +70,24 @@ _LIST = [
     _m("SMI", "index", "1", "structure model index: 0 plates, 3 rods (Hildebrand & Ruegsegger "
        "1997)"),
     _m("DA", "ratio", "1", "degree of anisotropy, largest over smallest mean intercept length"),
+    _m("Tb.N.direct", "density", "{u}^-1", "trabecular number, direct: 1 / mean distance "
+       "between mid-surfaces and mid-axes (Hildebrand et al. 1999)"),
+    # plates and rods (skelmorph.measure.platerod; symbols of Liu et al. 2008)
+    _m("pBV/TV", "ratio", "1", "plate volume fraction: solid nearest a plate mid-surface, over "
+       "the region's volume"),
+    _m("rBV/TV", "ratio", "1", "rod volume fraction: solid nearest a rod mid-axis, over the "
+       "region's volume"),
+    _m("P-R ratio", "ratio", "1", "plate volume over rod volume"),
+    _m("pTb.Th", "length", "{u}", "mean local thickness of the plate solid"),
+    _m("rTb.Th", "length", "{u}", "mean local thickness of the rod solid"),
+    _m("rTb.l", "length", "{u}", "mean rod length along its mid-axis, into its junctions"),
+    _m("pTb.S", "area", "{u}^2", "mean plate area: plate volume over plate thickness, per plate"),
+    _m("n_plates", "count", "1", "plates: pieces of mid-surface wider than twice their "
+       "thickness"),
+    _m("n_rods", "count", "1", "rods: pieces of mid-axis between junctions and plates"),
+    _m("R-R Junc.D", "density", "{u}^-3", "rod-rod junctions per unit volume"),
+    _m("P-R Junc.D", "density", "{u}^-3", "plate-rod junctions per unit volume"),
+    _m("P-P Junc.D", "density", "{u}^-3", "plate-plate junction lines per unit volume"),
     _m("TV", "volume", "{u}^3", "total volume: the region of interest"),
     _m("BV", "volume", "{u}^3", "bone volume: structure voxels in the region"),
     _m("BS", "area", "{u}^2", "bone surface (marching cubes mesh area)"),
