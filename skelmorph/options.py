@@ -229,7 +229,7 @@ ANALYZE_OPTIONS = (
            cli={"nargs": "+", "choices": ["bone", "vessel", "venation", "cortical", "all",
                                           "none"]}),
     Option("thickness_map", False, _boolean, "bone: also write thickness.tif and "
-           "separation.tif (diameters)", _MEAS),
+           "separation.tif (diameters) and plate_rod.tif (1 plate, 2 rod)", _MEAS),
     Option("major_vein_width", None, _number(0), "venation: split VLA into major and minor "
            "veins at this vein width", _MEAS, "length", cli={"type": float, "metavar": "W"}),
     Option("root", "thickest", _lazy_choice(_root_methods), "root rule", _TREE,

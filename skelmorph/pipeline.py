@@ -130,6 +130,7 @@ class AnalysisResult:
     bifurcations: dict = field(default=None, repr=False)
     maps: dict = field(default_factory=dict, repr=False)
     tables: dict = field(default_factory=dict, repr=False)  # name -> columns, as CSV
+    views: dict = field(default_factory=dict, repr=False)  # name -> small arrays for figures
 
 
 def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dark=False,
@@ -305,6 +306,7 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
     result.tables = extra["tables"]
     result.bifurcations = extra["bifurcations"]
     result.maps = extra["maps"]
+    result.views = extra["views"]
     if tree is not None and graph.n_nodes:
         from .descriptors.barcode import graph_barcodes
         t0 = time.perf_counter()
@@ -462,8 +464,9 @@ def _graph_in_slabs(volume, out, *, threshold, dark, label, prune, prune_factor,
         summary.update(chunked_bone_measures(volume, seg, volume.spacing, info["foreground"],
                                              info["cavities"](), limit))
         summary.setdefault("skipped_measures", {})["bone"] = (
-            "Tb.Th, Tb.Sp, Tb.N and DA need the whole scan in memory and were not computed "
-            "in slabs; BV/TV, BS/BV, Conn.D and SMI were")
+            "Tb.Th, Tb.Sp, Tb.N, Tb.N.direct, DA and the plate and rod measures need the "
+            "whole scan in memory and were not computed in slabs; BV/TV, BS/BV, Conn.D and "
+            "SMI were")
         summary["measure_sets"] = ["bone"]
         timings["bone"] = time.perf_counter() - t0
         bar.update(note="bone measures")
@@ -543,7 +546,8 @@ def _check_sets(sets, ndim):
 def _field_measures(sets, graph, mask, spacing, unit, roi, thickness_map, timings, bar,
                     root_rule=("thickest", None, None), major_vein_width=None):
     """Bone, vessel and venation measure sets, as asked."""
-    out = {"summary": {}, "branch_columns": {}, "bifurcations": None, "maps": {}, "tables": {}}
+    out = {"summary": {}, "branch_columns": {}, "bifurcations": None, "maps": {}, "tables": {},
+           "views": {}}
     if not sets:
         return out
     if "all" in sets:
@@ -564,9 +568,13 @@ def _field_measures(sets, graph, mask, spacing, unit, roi, thickness_map, timing
         t0 = time.perf_counter()
         if name == "bone":
             from .measure.bone import bone_measures
-            res = bone_measures(mask, spacing, unit, thickness_maps=thickness_map, roi=roi)
-            if thickness_map:
-                res, out["maps"] = res
+            from .measure.platerod import plate_rod_projections
+            res, maps = bone_measures(mask, spacing, unit, thickness_maps=thickness_map, roi=roi,
+                                      plate_rod_map=True)
+            out["views"]["plate_rod"] = plate_rod_projections(maps["plate_rod"])
+            if not thickness_map:
+                del maps["plate_rod"]
+            out["maps"] = maps
             out["summary"].update(res)
         elif name == "vessel":
             from .measure.vessel import vessel_measures
@@ -647,6 +655,14 @@ def write_results(result, out, figures=True):
         fig.suptitle("cortical cross-sections (research measurements)", fontsize=9)
         save(fig, out / "cortical.png")
         files.append(out / "cortical.png")
+    if figures and "plate_rod" in result.views:
+        from .report.figures import new_axes, plot_plate_rod_views, save
+        fig, ax = new_axes(3, 1, size=(3.0, 3.0), fixed=True)
+        plot_plate_rod_views(result.views["plate_rod"], g.spacing, ax[0], unit=g.unit)
+        fig.suptitle("plates and rods, projected along each axis (research measurements)",
+                     fontsize=9)
+        save(fig, out / "plate_rod.png")
+        files.append(out / "plate_rod.png")
     if figures and "loop_hierarchy" in result.tables:
         from .report.figures import new_axes, plot_loop_hierarchy, save
         fig, ax = new_axes(1, 1, size=(5.8, 3.4), fixed=True)

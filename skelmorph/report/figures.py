@@ -334,3 +334,34 @@ def plot_loop_hierarchy(table, ax, unit="um"):
     if n_trees > 1:
         ax.axhline(top, color="0.6", lw=0.8, ls="--")
     return z
+
+
+def plot_plate_rod_views(views, spacing, axes, unit="um"):
+    """Plates and rods projected along each axis: hue from the plate share
+    of the solid along the ray (plate and rod colours of the palette),
+    brightness from the amount of solid.  ``views`` as from
+    :func:`skelmorph.measure.platerod.plate_rod_projections`; returns the
+    three RGB images drawn."""
+    from matplotlib.colors import to_rgb
+    from matplotlib.patches import Patch
+    plate, rod = np.array(to_rgb(PALETTE[1])), np.array(to_rgb(PALETTE[0]))
+    names = "zyx"
+    images = []
+    for axis, (counts, ax) in enumerate(zip(views, axes)):
+        p, r = counts[..., 0].astype(float), counts[..., 1].astype(float)
+        total = p + r
+        share = np.divide(p, total, out=np.zeros_like(p), where=total > 0)[..., None]
+        colour = share * plate + (1 - share) * rod
+        weight = (np.log1p(total) / max(np.log1p(total.max()), 1e-12))[..., None]
+        rgb = 1 - weight * (1 - colour)  # white where there is no solid
+        rows, cols = [a for a in range(3) if a != axis]
+        ax.imshow(rgb, interpolation="nearest", origin="upper",
+                  extent=(0, rgb.shape[1] * spacing[cols], rgb.shape[0] * spacing[rows], 0))
+        ax.set_xlabel(f"{names[cols]} ({unit})")
+        ax.set_ylabel(f"{names[rows]} ({unit})")
+        ax.set_title(f"along {names[axis]}", fontsize=8)
+        images.append(rgb)
+    axes[0].figure.legend(handles=[Patch(color=plate, label="plate"),
+                                   Patch(color=rod, label="rod")],
+                          fontsize=7, frameon=False, loc="lower right", ncol=2)
+    return images

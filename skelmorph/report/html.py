@@ -359,7 +359,9 @@ def write_sample_report(folder, result=None):
                       ("profiles.png", "Radial profiles around the root."),
                       ("flow.png", "Modelled Poiseuille flow from the root to the free ends "
                                    "(rigid tubes, laminar flow; not measured blood flow)."),
-                      ("cortical.png", "Cortical areas per cross-section along axis 0.")):
+                      ("cortical.png", "Cortical areas per cross-section along axis 0."),
+                      ("plate_rod.png", "Solid nearest a plate mid-surface or a rod mid-axis, "
+                                        "projected along each axis.")):
         if (folder / name).exists():
             parts.append(_img(name, name, cap))
     parts.append("<h2>Software</h2>" + _table(["software", "version"],
