@@ -332,3 +332,18 @@ def test_degenerate_groups_warn_and_report_nan(tmp_path):
     saved = json.loads((tmp_path / "comparison.json").read_text())
     assert saved["notes"] == res["notes"]
     assert (tmp_path / "measures.csv").read_text().splitlines()[0].startswith("measure,unit,")
+
+
+def test_measures_undefined_in_many_samples_stay_out_of_the_classifier():
+    # A plate thickness is undefined (NaN) where a sample has no plates;
+    # median imputation would invent it, so such a column is left out when
+    # more than a quarter of the samples lack it; a rare gap is imputed.
+    import pandas as pd
+
+    from skelmorph.cohort.models import feature_matrix
+    cohort = pd.DataFrame({"sample": list("abcdefgh"), "group": ["x"] * 4 + ["y"] * 4,
+                           "Tb.Th": np.arange(8.0),
+                           "pTb.Th": [1.0, 2.0, 3.0, 4.0] + [np.nan] * 4,
+                           "Tb.Sp": [np.nan] + list(np.arange(7.0))})
+    X, names = feature_matrix({"cohort": cohort, "profiles": None, "barcodes": None})
+    assert names == ["Tb.Th", "Tb.Sp"] and X.shape == (8, 2)

@@ -16,13 +16,18 @@ from .study import scalar_measures
 __all__ = ["feature_matrix", "classify", "nca_feature_weights", "classical_mds", "cluster_ari"]
 
 
+#: Features missing (NaN) in more than this share of the samples are left out.
+MAX_MISSING_SHARE = 0.25
+
+
 def feature_matrix(study):
     """Vectorised descriptors of every sample: scalar measures, profiles on a
     coarse common grid, persistence images, log path counts.
 
     Returns
     -------
-    X : (n, p) float array (NaN where missing)
+    X : (n, p) float array (NaN where missing; features missing in more than
+        ``MAX_MISSING_SHARE`` of the samples are left out)
     names : list of str
     """
     cohort = study["cohort"]
@@ -45,7 +50,10 @@ def feature_matrix(study):
             blocks.append(pim.fit_transform(diagrams))
             names += [f"persistence_image[{i},{j}]" for i in range(6) for j in range(6)]
     X = np.hstack(blocks) if blocks else np.zeros((len(samples), 0))
-    keep = np.nanstd(X, axis=0) > 0
+    # A measure undefined in many samples (a plate thickness where there are
+    # no plates) is left out: imputing it would invent values for them.
+    with np.errstate(invalid="ignore"):
+        keep = (np.nanstd(X, axis=0) > 0) & (np.isnan(X).mean(axis=0) <= MAX_MISSING_SHARE)
     return X[:, keep], [n for n, k in zip(names, keep) if k]
 
 
