@@ -24,6 +24,9 @@
   and the sliced distance's error and speed against the exact one;
 - edt: our exact anisotropic distance transform against scipy's and the
   ``edt`` package (when installed);
+- platerod: the surface thinning against the curve thinning, the plate and
+  rod decomposition against the curve thinning, and direct Tb.N against
+  Tb.Sp (both local thickness), on the rod foam and a foam with plates;
 - loops: the hierarchical loop decomposition of grid leaves of 10^3 and 10^4
   areoles, against labelling the areoles and building the graph;
 - chunks: the default analysis of tiled foams in slabs under a memory limit,
@@ -654,6 +657,42 @@ def bench_loops(sides=(32, 100)):
               f"x{t_loops / t_graph:.2f} building the graph ({t_graph:.2f} s)")
 
 
+def _plates_in_foam(size):
+    """The foam with plates every 32 voxels across axis 0 (a plate-rich solid)."""
+    m = foam(size=float(size), cell=16.0, rod_radius=2.5, seed=0).mask
+    z = np.arange(m.shape[0])
+    m[(z % 32) < 5] = True
+    return m
+
+
+def bench_platerod(sizes):
+    """Surface thinning against our curve thinning; the plate and rod
+    decomposition against the curve thinning too; direct Tb.N against Tb.Sp
+    (both local thickness), on the rod foam and the foam with plates."""
+    from skelmorph.measure.bone import _local_thickness_in, direct_trabecular_number
+    from skelmorph.measure.platerod import plate_rod_measures
+    from skelmorph.thinning import distance_map_sq, thin
+    print("\nplates and rods, direct Tb.N:")
+    for size in sizes:
+        for name, m in (("rod foam", foam(size=float(size), cell=16.0, rod_radius=2.5,
+                                          seed=0).mask),
+                        ("foam + plates", _plates_in_foam(size))):
+            sp = (1.0, 1.0, 1.0)
+            dsq = distance_map_sq(m, sp)
+            curves, t_c = clock(thin, m, sp, dsq=dsq)
+            skel, t_s = clock(thin, m, sp, dsq=dsq, keep="surfaces")
+            r, t_pr = clock(plate_rod_measures, m, sp, dsq=dsq, skeleton=skel)
+            tbn, t_tbn = clock(direct_trabecular_number, skel, sp)
+            space = ~m
+            _, t_sp = clock(_local_thickness_in, space, space, sp)
+            print(f"  {name} {size}^3: surface thinning {t_s:.2f} s = x{t_s / t_c:.2f} curve "
+                  f"thinning ({t_c:.2f} s; {int(skel.sum())} vs {int(curves.sum())} voxels) | "
+                  f"plates and rods {t_pr:.2f} s = x{t_pr / t_c:.2f} curve thinning "
+                  f"(pBV/TV {r['pBV/TV']:.3f}, rBV/TV {r['rBV/TV']:.3f}, {r['n_plates']} "
+                  f"plates, {r['n_rods']} rods) | direct Tb.N {t_tbn:.2f} s = x{t_tbn / t_sp:.2f} "
+                  f"Tb.Sp ({t_sp:.2f} s)")
+
+
 def bench_flow(graph):
     """Poiseuille flow: the sparse solve on the foam graph and on lattices of
     about 10^5 branches, against one sparse Laplacian product and a dense
@@ -745,10 +784,10 @@ def main(argv=None):
     ap.add_argument("--only", nargs="+",
                     default=["thinning", "pipeline", "measures", "scans", "trees", "profiles",
                              "paths", "flow", "loops", "cohort", "compare", "report", "memory",
-                             "edt", "chunks"],
+                             "edt", "chunks", "platerod"],
                     choices=["thinning", "pipeline", "measures", "scans", "trees", "profiles",
                              "paths", "flow", "loops", "cohort", "compare", "report", "memory",
-                             "edt", "chunks"])
+                             "edt", "chunks", "platerod"])
     args = ap.parse_args(argv)
     sizes = args.sizes + ([512] if args.large else [])
     print(f"skelmorph {sm.__version__}, numpy {np.__version__}, python {sys.version.split()[0]}")
@@ -789,6 +828,8 @@ def main(argv=None):
         bench_flow(graph)
     if "loops" in args.only:
         bench_loops()
+    if "platerod" in args.only:
+        bench_platerod(sizes)
     if "cohort" in args.only:
         bench_cohort()
     if "edt" in args.only:
