@@ -604,9 +604,20 @@ def _field_measures(sets, graph, mask, spacing, unit, roi, thickness_map, timing
             from .measure.loops import loop_hierarchy
             from .measure.venation import venation_measures
             origin = graph.meta.get("roi_origin")
-            out["summary"].update(venation_measures(graph, mask, spacing, unit, region=roi,
-                                                    origin=origin,
-                                                    major_width=major_vein_width))
+            from .rooting import choose_root
+            try:  # the leaf base, by the root rule, for the vein orders
+                base = int(choose_root(graph, root_rule[0], point=root_rule[1],
+                                       face=root_rule[2] or "z-"))
+            except InputError as exc:
+                base = None
+                note = f"vein orders skipped: {exc}"
+                out["summary"].setdefault("skipped_measures", {})["vein_orders"] = note
+                warnings.warn(note, SegmentationWarning, stacklevel=3)
+            vsum = venation_measures(graph, mask, spacing, unit, region=roi, origin=origin,
+                                     major_width=major_vein_width, root=base)
+            if "branch_orders" in vsum:
+                out["branch_columns"]["vein_order"] = vsum.pop("branch_orders")
+            out["summary"].update(vsum)
             lsum, ltable = loop_hierarchy(graph, mask, spacing, region=roi, origin=origin)
             out["summary"].update(lsum)
             out["tables"]["loop_hierarchy"] = ltable

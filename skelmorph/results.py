@@ -144,6 +144,16 @@ _LIST = [
        "per area of lamina (Sack & Scoffoni 2013)"),
     _m("minor_VLA", "density", "{u} {u}^-2", "length of veins narrower than --major-vein-width "
        "per area of lamina"),
+    _m("VLA_1", "density", "{u} {u}^-2", "length of the midrib (1° vein) per area of lamina "
+       "(orders by width and continuity from the leaf base, Sack & Scoffoni 2013)"),
+    _m("VLA_2", "density", "{u} {u}^-2", "length of 2° veins per area of lamina"),
+    _m("VLA_3", "density", "{u} {u}^-2", "length of 3° veins per area of lamina"),
+    _m("VLA_higher", "density", "{u} {u}^-2", "length of 4° and finer (minor) veins per area "
+       "of lamina"),
+    _m("mean_width_1", "length", "{u}", "length-weighted mean width of the 1° vein"),
+    _m("mean_width_2", "length", "{u}", "length-weighted mean width of 2° veins"),
+    _m("mean_width_3", "length", "{u}", "length-weighted mean width of 3° veins"),
+    _m("n_secondary_veins", "count", "1", "2° veins: veins branching off the midrib"),
     _m("areole_count", "count", "1", "areoles: regions of lamina enclosed by veins"),
     _m("areole_density", "density", "{u}^-2", "areoles per area of lamina"),
     _m("mean_areole_area", "area", "{u}^2", "mean area of an areole"),

@@ -54,7 +54,7 @@ def areole_labels(veins, lamina):
 
 
 def venation_measures(graph, veins, spacing, unit="um", region=None, origin=None,
-                      major_width=None):
+                      major_width=None, root=None):
     """Vein length per area, areoles, free-ending veinlets and loop density.
 
     Parameters
@@ -76,6 +76,12 @@ def venation_measures(graph, veins, spacing, unit="um", region=None, origin=None
         orders minor; the width that separates them depends on the leaf and
         is the user's to give).  A vein's width is twice its
         volume-equivalent radius.
+    root : int, optional
+        The node at the leaf base.  With it, every branch gets a vein order
+        (:func:`skelmorph.measure.veinorders.vein_orders`) and the summary
+        has VLA and mean width per order class (``VLA_1``, ``VLA_2``,
+        ``VLA_3``, ``VLA_higher``; ``mean_width_1`` ...) and the number of
+        2° veins; the orders are returned in ``branch_orders``.
 
     Returns
     -------
@@ -113,6 +119,23 @@ def venation_measures(graph, veins, spacing, unit="um", region=None, origin=None
         major_length = float(steps[inside & major].sum())
         split = {"major_VLA": major_length / area if area > 0 else float("nan"),
                  "minor_VLA": (length - major_length) / area if area > 0 else float("nan")}
+    if root is not None:
+        from .veinorders import N_CLASSES, vein_orders
+        orders, starts = vein_orders(graph, root, return_starts=True)
+        cls = np.clip(orders, 0, N_CLASSES)
+        width = 2.0 * np.asarray(graph.branch_radius(), float) * np.ones(graph.n_edges)
+        seg_cls = cls[eid[:-1]]
+        seg_w = width[eid[:-1]]
+        for k in range(1, N_CLASSES + 1):
+            name = str(k) if k < N_CLASSES else "higher"
+            sel = inside & (seg_cls == k)
+            split[f"VLA_{name}"] = float(steps[sel].sum()) / area if area > 0 else float("nan")
+            if k < N_CLASSES:
+                w = steps[sel]
+                split[f"mean_width_{k}"] = (float((seg_w[sel] * w).sum() / w.sum())
+                                            if w.sum() > 0 else float("nan"))
+        split["n_secondary_veins"] = int(np.count_nonzero(starts & (orders == 2)))
+        split["branch_orders"] = orders
     # Areoles: enclosed background components.
     labels, n = areole_labels(veins, lamina)
     areole_areas = np.bincount(labels.ravel(), minlength=n + 1)[1:] * pixel
