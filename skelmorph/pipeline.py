@@ -682,6 +682,14 @@ def write_results(result, out, figures=True):
                            "(research measurements)", fontsize=8)
         save(fig, out / "loop_hierarchy.png")
         files.append(out / "loop_hierarchy.png")
+    if figures and "vein_order" in result.branch_columns:
+        from .report.figures import new_axes, plot_vein_orders, save
+        fig, ax = new_axes(1, 1, size=(5.8, 4.6), fixed=True)
+        plot_vein_orders(g, result.branch_columns["vein_order"], ax[0, 0], unit=g.unit)
+        ax[0, 0].set_title("vein orders by width and continuity from the base "
+                           "(research measurements)", fontsize=8)
+        save(fig, out / "vein_orders.png")
+        files.append(out / "vein_orders.png")
     if figures and "flow" in result.branch_columns:
         from .report.figures import new_axes, plot_flow, save
         fig, ax = new_axes(1, 1, size=(5.8, 4.6), fixed=True)

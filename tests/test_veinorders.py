@@ -85,7 +85,11 @@ def test_vla_per_order_class_in_the_pipeline(tmp_path):
     mask, starts, ends, drawn = _leaf()
     drawn_len = np.linalg.norm(ends - starts, axis=1)
     res = sm.analyze(mask, (1.0, 1.0), measures="venation", root_point=(380.0, 150.0),
-                     root="point", tree=None)
+                     root="point", tree=None, out=tmp_path / "leaf")
+    assert (tmp_path / "leaf" / "vein_orders.png").stat().st_size > 1000
+    import csv
+    with open(tmp_path / "leaf" / "branches.csv") as f:
+        assert {int(r["vein_order"]) for r in csv.DictReader(f)} == {1, 2, 3, 4}
     s = res.summary
     area = s["lamina_area"]
     for k, key in ((1, "VLA_1"), (2, "VLA_2"), (3, "VLA_3"), (4, "VLA_higher")):

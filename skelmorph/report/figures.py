@@ -365,3 +365,31 @@ def plot_plate_rod_views(views, spacing, axes, unit="um"):
                                    Patch(color=rod, label="rod")],
                           fontsize=7, frameon=False, loc="lower right", ncol=2)
     return images
+
+
+def plot_vein_orders(graph, orders, ax, unit="um"):
+    """Centrelines coloured by vein order class (1°, 2°, 3°, finer), line
+    width falling with the order; returns the branches drawn per class."""
+    from matplotlib.collections import LineCollection
+    from matplotlib.lines import Line2D
+    orders = np.minimum(np.asarray(orders, int), 4)
+    names = {1: "1° (midrib)", 2: "2°", 3: "3°", 4: "4° and finer", 0: "not reached"}
+    colours = {1: PALETTE[5], 2: PALETTE[0], 3: PALETTE[2], 4: PALETTE[4], 0: "0.7"}
+    widths = {1: 2.4, 2: 1.6, 3: 1.1, 4: 0.7, 0: 0.5}
+    pts, off = graph.points, graph.offsets
+    drawn, handles = {}, []
+    for k in (0, 4, 3, 2, 1):  # finest first, so that major veins lie on top
+        idx = np.flatnonzero(orders == k)
+        if not idx.size:
+            continue
+        segs = [pts[off[e]:off[e + 1]][:, -2:][:, ::-1] for e in idx]
+        ax.add_collection(LineCollection(segs, colors=colours[k], linewidths=widths[k]))
+        drawn[k] = idx
+        handles.append(Line2D([], [], color=colours[k], lw=widths[k], label=names[k]))
+    ax.autoscale()
+    ax.set_aspect("equal")
+    ax.invert_yaxis()
+    ax.set_xlabel(f"x ({unit})")
+    ax.set_ylabel(f"y ({unit})")
+    ax.legend(handles=handles[::-1], fontsize=7, frameon=False, loc="best")
+    return drawn

@@ -360,6 +360,8 @@ def write_sample_report(folder, result=None):
                       ("flow.png", "Modelled Poiseuille flow from the root to the free ends "
                                    "(rigid tubes, laminar flow; not measured blood flow)."),
                       ("cortical.png", "Cortical areas per cross-section along axis 0."),
+                      ("vein_orders.png", "Vein orders by width and continuity from "
+                                          "the leaf base."),
                       ("plate_rod.png", "Solid nearest a plate mid-surface or a rod mid-axis, "
                                         "projected along each axis.")):
         if (folder / name).exists():
