@@ -173,10 +173,12 @@ def local_thickness(mask, spacing=None, method="ridge", dist=None):
     off, off_len = _ball_offsets(r_max, spacing)
     deltas = off @ c_strides(padded_shape)
     out = np.zeros(int(np.prod(padded_shape)), np.float32)
-    # Largest radius first; a voxel keeps the first value painted on it.
+    # Largest radius first; a voxel keeps the first value painted on it.  The
+    # centres are gathered one radius group at a time: a sorted copy of them
+    # would cost 8 bytes per centre, and the ridge can hold most voxels.
     order = np.argsort(-r, kind="stable")
-    r_sorted, c_sorted = r[order], cflat[order]
-    del order, cflat, r
+    r_sorted = r[order]
+    del r
     bounds = np.flatnonzero(np.diff(r_sorted)) + 1
     starts = np.concatenate([[0], bounds])
     stops = np.concatenate([bounds, [len(r_sorted)]])
@@ -185,7 +187,8 @@ def local_thickness(mask, spacing=None, method="ridge", dist=None):
         m = int(np.searchsorted(off_len, radius, side="left"))  # offsets with |o| < radius
         if m == 0:
             continue
-        _paint(out, c_sorted[a:b], deltas[:m], np.float32(2 * radius))
+        _paint(out, cflat[order[a:b]], deltas[:m], np.float32(2 * radius))
+    del order, cflat
     out = np.ascontiguousarray(out.reshape(padded_shape)[tuple(slice(pad, pad + s)
                                                                   for s in out_shape)])
     out[~mask] = 0
