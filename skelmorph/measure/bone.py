@@ -457,6 +457,14 @@ def bone_measures(mask, spacing, unit="um", thickness_maps=False, progress=None,
     tv = (m.size if roi is None else int(np.count_nonzero(roi))) * voxel
     bv = float(np.count_nonzero(m)) * voxel
     step = progress or (lambda note: None)
+    # Mid-surfaces and mid-axes first, for direct Tb.N and the plates and
+    # rods: its local thickness is the largest transient of the set, and
+    # runs before the thickness maps exist.
+    from ..thinning import thin
+    from .platerod import plate_rod_measures
+    skel = thin(m, spacing, keep="surfaces")
+    tbn_direct = direct_trabecular_number(skel, spacing, roi=roi)
+    step("direct Tb.N")
     # Distances run to the other phase inside the region only: outside it
     # (and beyond the image edge) there is no wall.
     th, th_step = _local_thickness_in(m, m if roi is None else m | ~roi, spacing)
@@ -464,6 +472,9 @@ def bone_measures(mask, spacing, unit="um", thickness_maps=False, progress=None,
     sp, sp_step = _local_thickness_in(space, space if roi is None else ~m, spacing)
     step("separation")
     tb_th, tb_sp = float(th[m].mean()), float(sp[space].mean())
+    th_sd, sp_sd = float(th[m].std()), float(sp[space].std())
+    if not thickness_maps:
+        del sp  # 4 bytes per voxel less for the steps below
     bs, smi = surface_and_smi(m, spacing, bv, roi=roi)
     # Slab by slab (equal to Odgaard & Gundersen's box formula, tested).
     chi = int(round(euler_in_region(m)))
@@ -472,23 +483,18 @@ def bone_measures(mask, spacing, unit="um", thickness_maps=False, progress=None,
     cavities = count_cavities(m)
     da, axes = mil_fabric(m, spacing, roi=roi)
     step("surface, connectivity, anisotropy")
-    # Mid-surfaces and mid-axes: direct Tb.N, plates and rods.
-    from ..thinning import distance_map_sq, thin
-    from .platerod import plate_rod_measures
-    dsq = distance_map_sq(m, spacing)
-    skel = thin(m, spacing, dsq=dsq, keep="surfaces")
-    tbn_direct = direct_trabecular_number(skel, spacing, roi=roi)
-    pr = plate_rod_measures(m, spacing, thickness=th, dsq=dsq, skeleton=skel, tv=tv,
+    # (plate_rod_measures makes its own distance map, and frees it early.)
+    pr = plate_rod_measures(m, spacing, thickness=th, skeleton=skel, tv=tv,
                             return_labels=plate_rod_map)
-    del dsq, skel
+    del skel
     if plate_rod_map:
         pr, labels = pr
     step("plates and rods")
     out = {
         "BV/TV": bv / tv,
         "BS/BV": bs / bv,
-        "Tb.Th": tb_th, "Tb.Th.SD": float(th[m].std()),
-        "Tb.Sp": tb_sp, "Tb.Sp.SD": float(sp[space].std()),
+        "Tb.Th": tb_th, "Tb.Th.SD": th_sd,
+        "Tb.Sp": tb_sp, "Tb.Sp.SD": sp_sd,
         "Tb.N": 1.0 / (tb_th + tb_sp),
         "Tb.N.direct": tbn_direct,
         "Conn.D": (cavities - dchi) / tv + 0.0,

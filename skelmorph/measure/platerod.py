@@ -196,16 +196,19 @@ def plate_rod_measures(mask, spacing, thickness=None, dsq=None, skeleton=None, t
         raise InputError("plates and rods need some solid; the mask is empty")
     sp = np.asarray(spacing, float)
     voxel = float(np.prod(sp))
-    if dsq is None:
+    own_dsq = dsq is None
+    if own_dsq:
         dsq = distance_map_sq(m, sp)
     if skeleton is None:
         skeleton = thin(m, sp, dsq=dsq, keep="surfaces")
     flat, cbar = background_numbers(skeleton)
+    local = 2.0 * np.sqrt(dsq.ravel()[flat].astype(float))  # thickness at the skeleton
+    if own_dsq:
+        del dsq  # only its values on the skeleton are needed
     n = flat.size
     rows, cols, lens = _links(flat, m.shape, sp)
     both_r = np.concatenate([rows, cols])
     both_c = np.concatenate([cols, rows])
-    local = 2.0 * np.sqrt(dsq.ravel()[flat].astype(float))  # thickness at the skeleton
     # Plates: sheet pieces wider than thick.
     sheet_lab = _components(n, rows, cols, cbar == 2)
     n_sheets = int(sheet_lab.max()) + 1
@@ -277,9 +280,9 @@ def plate_rod_measures(mask, spacing, thickness=None, dsq=None, skeleton=None, t
     near[:] = True
     near[flat[~plate_vox]] = False
     d_rod = distance_map_sq(near.reshape(shape), sp)
-    del near
-    plate_solid = m & (d_plate <= d_rod)
+    plate_solid = np.less_equal(d_plate, d_rod, out=near.reshape(shape))
     del d_plate, d_rod
+    plate_solid &= m
     rod_solid = m & ~plate_solid
     tv = m.size * voxel if tv is None else float(tv)
     pbv = float(np.count_nonzero(plate_solid)) * voxel
