@@ -36,7 +36,8 @@ from scipy import ndimage as ndi
 from ..errors import InputError
 from .thickness import bounded_local_thickness
 
-__all__ = ["bone_measures", "direct_trabecular_number", "edge_corrected_euler", "euler_in_region", "mil_fabric",
+__all__ = ["bone_measures", "direct_trabecular_number", "edge_corrected_euler", "mil_counts",
+           "mil_fit", "euler_in_region", "mil_fabric",
            "surface_and_smi", "BONE_KEYS"]
 
 BONE_KEYS = ("BV/TV", "BS/BV", "Tb.Th", "Tb.Th.SD", "Tb.Sp", "Tb.Sp.SD", "Tb.N", "Conn.D",
@@ -198,22 +199,50 @@ def mil_fabric(mask, spacing, roi=None):
         Semi-axes of the MIL ellipsoid, largest first, in the image unit.
     """
     m = _check_3d(mask)
-    spacing = np.asarray(spacing, float)
-    rows, target = [], []
+    return mil_fit(mil_counts(m, roi=roi), spacing)
+
+
+def mil_counts(mask, roi=None, n_first=None):
+    """Phase changes and voxel pairs along each lattice direction of
+    :func:`mil_fabric`: ``{direction: [crossings, pairs]}``.
+
+    Only pairs whose first voxel lies in the first ``n_first`` planes count
+    (default: all), so that a scan read in slabs of ``n_first`` planes plus
+    two adds up to the whole (every direction steps 0 to 2 planes forward).
+    """
+    n0 = mask.shape[0]
+    n_first = n0 if n_first is None else int(n_first)
+    out = {}
     for v in _primitive_directions():
-        lo = tuple(slice(max(0, -k), m.shape[i] - max(0, k)) for i, k in enumerate(v))
-        hi = tuple(slice(max(0, k), m.shape[i] - max(0, -k)) for i, k in enumerate(v))
-        a, b = m[lo], m[hi]
-        if a.size == 0:
+        vz = int(v[0])  # >= 0: the first non-zero component is positive
+        n_pairs0 = min(n_first, n0 - vz)
+        if n_pairs0 <= 0:
+            out[tuple(int(k) for k in v)] = [0, 0]
             continue
-        step = float(np.linalg.norm(v * spacing))
+        lo = (slice(0, n_pairs0),) + tuple(slice(max(0, -k), mask.shape[i] - max(0, k))
+                                           for i, k in enumerate(v) if i > 0)
+        hi = (slice(vz, vz + n_pairs0),) + tuple(slice(max(0, k), mask.shape[i] - max(0, -k))
+                                                for i, k in enumerate(v) if i > 0)
+        a, b = mask[lo], mask[hi]
         if roi is None:
-            crossings, pairs = np.count_nonzero(a != b), a.size
+            counts = [int(np.count_nonzero(a != b)), int(a.size)]
         else:
             both = roi[lo] & roi[hi]
-            crossings, pairs = np.count_nonzero((a != b) & both), np.count_nonzero(both)
-            if pairs == 0:
-                continue
+            counts = [int(np.count_nonzero((a != b) & both)), int(np.count_nonzero(both))]
+        out[tuple(int(k) for k in v)] = counts
+    return out
+
+
+def mil_fit(counts, spacing):
+    """DA and the MIL ellipsoid's semi-axes from :func:`mil_counts` (summed
+    over slabs, if read in slabs); see :func:`mil_fabric`."""
+    spacing = np.asarray(spacing, float)
+    rows, target = [], []
+    for v, (crossings, pairs) in counts.items():
+        if pairs == 0:
+            continue
+        v = np.asarray(v, float)
+        step = float(np.linalg.norm(v * spacing))
         w = v * spacing / step
         rows.append([w[0] ** 2, w[1] ** 2, w[2] ** 2, 2 * w[0] * w[1], 2 * w[0] * w[2],
                      2 * w[1] * w[2]])
