@@ -115,7 +115,7 @@ def _align_up(n):
     return int(math.ceil(n / SLAB_ALIGN)) * SLAB_ALIGN
 
 
-def plan_slabs(shape, memory_limit, halo):
+def plan_slabs(shape, memory_limit, halo, bytes_per_voxel=None):
     """Slab cores ``[(a, b), ...]`` along the first axis for a memory limit.
 
     Parameters
@@ -123,6 +123,8 @@ def plan_slabs(shape, memory_limit, halo):
     shape : tuple of 3 ints
     memory_limit : int, bytes
     halo : int, planes on each side (a multiple of ``SLAB_ALIGN``)
+    bytes_per_voxel : float, optional
+        Working memory of the slab's task (default ``BYTES_PER_VOXEL``).
 
     Raises
     ------
@@ -131,7 +133,7 @@ def plan_slabs(shape, memory_limit, halo):
         fits in the limit.
     """
     nz = int(shape[0])
-    plane = float(shape[1]) * float(shape[2]) * BYTES_PER_VOXEL
+    plane = float(shape[1]) * float(shape[2]) * (bytes_per_voxel or BYTES_PER_VOXEL)
     fit = int(memory_limit // plane)  # planes that fit
     core = (fit - 2 * halo) // SLAB_ALIGN * SLAB_ALIGN
     if core < SLAB_ALIGN and fit < nz:
@@ -653,18 +655,26 @@ class LazyMask:
         return self.foreground == self.size
 
 
-def chunked_bone_measures(volume, seg, spacing, foreground, cavities, memory_limit):
-    """The bone measures that add up over slabs: BV/TV, BS/BV, BS/TV, SMI,
-    the Euler characteristic and Conn.D (edge-corrected), each computed by
-    the slab-wise code of :mod:`skelmorph.measure.bone` on planes read on
-    demand, so equal to the whole volume's (tested).  Tb.Th, Tb.Sp, Tb.N and
-    DA need the whole volume and are not computed.
+def chunked_bone_measures(volume, seg, spacing, foreground, cavities, memory_limit, *,
+                          workers=1, scheduler=None, progress=False):
+    """The bone set of a scan read in slabs.
+
+    BV/TV, BS/BV, BS/TV, SMI, the Euler characteristic and Conn.D
+    (edge-corrected) come from the slab-wise code of
+    :mod:`skelmorph.measure.bone` on planes read on demand; DA from
+    mean-intercept counts summed over slabs; Tb.Th and Tb.Sp (with SDs) from
+    the local thickness in slabs with halos as deep as the largest sphere
+    needs (:mod:`skelmorph.slab_thickness`), and Tb.N from those.  All equal
+    the whole volume's (tested).  Direct Tb.N and the plates and rods need a
+    surface skeleton of the whole scan and are not computed.
 
     Returns
     -------
     dict
     """
-    from .measure.bone import euler_in_region, surface_and_smi
+    from .measure.bone import euler_in_region, mil_counts, mil_fit, surface_and_smi
+    from .progress import Progress
+    from .slab_thickness import slab_local_thickness
 
     lazy = LazyMask(volume, seg, foreground)
     voxel = float(np.prod(spacing))
@@ -673,6 +683,38 @@ def chunked_bone_measures(volume, seg, spacing, foreground, cavities, memory_lim
     bs, smi = surface_and_smi(lazy, spacing, bv, slab_voxels=slab_voxels)
     chi = int(round(euler_in_region(lazy, slab_voxels=slab_voxels)))
     dchi = euler_in_region(lazy, True, slab_voxels=slab_voxels)
-    return {"BV/TV": bv / tv, "BS/BV": bs / bv, "Conn.D": (cavities - dchi) / tv + 0.0,
-            "SMI": smi, "TV": tv, "BV": bv, "BS": bs, "BS/TV": bs / tv,
-            "euler_characteristic": chi, "euler_edge_corrected": dchi, "cavities": cavities}
+    # Mean intercepts: pairs counted by the plane of their first voxel.
+    nz = lazy.shape[0]
+    planes = max(1, slab_voxels // (lazy.shape[1] * lazy.shape[2]))
+    starts = range(0, nz, planes)
+    bar = Progress(len(starts), "intercepts", enabled=bool(progress))
+    total = {}
+    for a in starts:
+        n_first = min(planes, nz - a)
+        for v, (c, p) in mil_counts(lazy[a:min(nz, a + n_first + 2)], n_first=n_first).items():
+            t = total.setdefault(v, [0, 0])
+            t[0] += c
+            t[1] += p
+        bar.update()
+    da, axes = mil_fit(total, spacing)
+    out = {"BV/TV": bv / tv, "BS/BV": bs / bv, "Conn.D": (cavities - dchi) / tv + 0.0,
+           "SMI": smi, "DA": da, "TV": tv, "BV": bv, "BS": bs, "BS/TV": bs / tv,
+           "euler_characteristic": chi, "euler_edge_corrected": dchi, "cavities": cavities,
+           "MIL_axes": [float(x) for x in axes]}
+    try:
+        th, th_sd, th_step, th_halo = slab_local_thickness(
+            volume, seg, spacing, "solid", memory_limit, workers=workers, scheduler=scheduler,
+            progress=progress)
+        sp, sp_sd, sp_step, sp_halo = slab_local_thickness(
+            volume, seg, spacing, "space", memory_limit, workers=workers, scheduler=scheduler,
+            progress=progress)
+    except InputError as exc:  # the limit is too small for the spheres' halo
+        out["skipped"] = (f"Tb.Th, Tb.Sp and Tb.N were not computed: {exc} (a larger "
+                          "--memory-limit allows them)")
+        return out
+    out.update({"Tb.Th": th, "Tb.Th.SD": th_sd, "Tb.Sp": sp, "Tb.Sp.SD": sp_sd,
+                "Tb.N": 1.0 / (th + sp),
+                "thickness_lattice_step": th_step, "separation_lattice_step": sp_step,
+                "thickness_halo": th_halo * float(spacing[0]),
+                "separation_halo": sp_halo * float(spacing[0])})
+    return out

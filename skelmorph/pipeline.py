@@ -461,12 +461,16 @@ def _graph_in_slabs(volume, out, *, threshold, dark, label, prune, prune_factor,
     if "bone" in sets:
         from .chunked import chunked_bone_measures
         t0 = time.perf_counter()
-        summary.update(chunked_bone_measures(volume, seg, volume.spacing, info["foreground"],
-                                             info["cavities"](), limit))
-        summary.setdefault("skipped_measures", {})["bone"] = (
-            "Tb.Th, Tb.Sp, Tb.N, Tb.N.direct, DA and the plate and rod measures need the "
-            "whole scan in memory and were not computed in slabs; BV/TV, BS/BV, Conn.D and "
-            "SMI were")
+        bone = chunked_bone_measures(volume, seg, volume.spacing, info["foreground"],
+                                     info["cavities"](), limit, workers=workers,
+                                     scheduler=scheduler, progress=bar.enabled)
+        notes = ["Tb.N.direct and the plate and rod measures need a surface skeleton of the "
+                 "whole scan and were not computed in slabs"]
+        if "skipped" in bone:
+            notes.append(bone.pop("skipped"))
+            warnings.warn(notes[-1], SegmentationWarning, stacklevel=2)
+        summary.update(bone)
+        summary.setdefault("skipped_measures", {})["bone"] = "; ".join(notes)
         summary["measure_sets"] = ["bone"]
         timings["bone"] = time.perf_counter() - t0
         bar.update(note="bone measures")

@@ -99,6 +99,10 @@ _LIST = [
     _m("thickness_lattice_step", "count", "voxel", "lattice step of the local thickness "
        "(1 = exact; coarser for very thick parts)"),
     _m("separation_lattice_step", "count", "voxel", "lattice step of the local separation"),
+    _m("thickness_halo", "length", "{u}", "halo of the slabs for the local thickness of a "
+       "scan analysed in slabs (deep enough for the largest sphere)"),
+    _m("separation_halo", "length", "{u}", "halo of the slabs for the local separation of a "
+       "scan analysed in slabs"),
     # vessels
     _m("length_density", "density", "{u} {u}^-{d}", "centreline length per unit volume of the "
        "region (per unit area in 2D)"),

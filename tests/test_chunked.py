@@ -252,31 +252,72 @@ def test_slabs_on_a_dask_cluster(tmp_path):
 
 def test_bone_measures_in_slabs_equal_the_whole(tmp_path):
     """BV/TV, BS/BV, SMI, the Euler characteristics and Conn.D add up over
-    slabs (the slab-wise code reads planes on demand): equal to the whole
-    volume's bone set, which is itself checked against scikit-image and the
-    Odgaard & Gundersen box formula in test_measure.py."""
+    slabs (the slab-wise code reads planes on demand), DA from intercept
+    counts summed over slabs, Tb.Th and Tb.Sp from local thickness with
+    halos as deep as the largest sphere: equal to the whole volume's bone
+    set, which is itself checked against scikit-image, the Odgaard &
+    Gundersen box formula and analytic plates in test_measure.py."""
     from skelmorph.measure.bone import bone_measures
-    ph = foam(size=128.0, cell=16.0, rod_radius=2.5, seed=6, spacing=(1.5, 1.0, 1.0))
+    ph = foam(size=96.0, cell=16.0, rod_radius=2.5, seed=6, spacing=(1.5, 1.0, 1.0))
+    # Mirrored copies stacked: tall enough for slabs of the local thickness
+    # (40 bytes per voxel) under a limit that also cuts the thinning.
+    mask = np.concatenate([ph.mask, ph.mask[::-1]] * 2)
     path = tmp_path / "scan.npy"
-    np.save(path, ph.mask)
-    whole = bone_measures(ph.mask, ph.spacing)
-    res = sm.analyze(path, spacing=ph.spacing, memory_limit=_planes_limit(ph.mask.shape, 80),
+    np.save(path, mask)
+    whole = bone_measures(mask, ph.spacing)
+    res = sm.analyze(path, spacing=ph.spacing, memory_limit=_planes_limit(mask.shape, 200),
                      measures="bone", tree=None, n_radii=0, out=tmp_path / "out")
     s = res.summary
     assert s["n_chunks"] >= 2
     for key in ("BV/TV", "BS/BV", "SMI", "Conn.D", "euler_characteristic",
-                "euler_edge_corrected", "cavities"):
+                "euler_edge_corrected", "cavities", "DA"):
         assert s[key] == pytest.approx(whole[key], rel=1e-9, abs=1e-12), key
-    assert "Tb.Th" not in s and "Tb.Th" in s["skipped_measures"]["bone"]
+    # float32 maps, summed in float64 here and by numpy's float32 mean there
+    for key in ("Tb.Th", "Tb.Th.SD", "Tb.Sp", "Tb.Sp.SD", "Tb.N"):
+        assert s[key] == pytest.approx(whole[key], rel=1e-6), key
+    assert "Tb.N.direct" not in s and "Tb.N.direct" in s["skipped_measures"]["bone"]
+    assert s["thickness_halo"] > 0 and s["separation_halo"] >= s["thickness_halo"]
     # slab-wise code with slabs of a few planes (many slab faces) gives the same
     from skelmorph.chunked import LazyMask
     from skelmorph.measure.bone import euler_in_region, surface_and_smi
     vol = open_volume(path, spacing=ph.spacing)
-    lazy = LazyMask(vol, survey(vol), int(np.count_nonzero(ph.mask)))
-    bs, smi = surface_and_smi(lazy, ph.spacing, whole["BV"], slab_voxels=128 * 128 * 9)
+    lazy = LazyMask(vol, survey(vol), int(np.count_nonzero(mask)))
+    bs, smi = surface_and_smi(lazy, ph.spacing, whole["BV"], slab_voxels=96 * 96 * 9)
     assert bs == pytest.approx(whole["BS"], rel=1e-9) and smi == pytest.approx(whole["SMI"])
-    assert euler_in_region(lazy, True, slab_voxels=128 * 128 * 5) == \
+    assert euler_in_region(lazy, True, slab_voxels=96 * 96 * 5) == \
         pytest.approx(whole["euler_edge_corrected"])
+    # A limit that cuts the thinning but cannot hold a thickness slab: the
+    # rest of the set is there, and the summary says what is missing.
+    small = sm.analyze(path, spacing=ph.spacing, memory_limit=_planes_limit(mask.shape, 100),
+                       measures="bone", tree=None, n_radii=0).summary
+    assert "Tb.Th" not in small and "Tb.Th" in small["skipped_measures"]["bone"]
+    assert small["DA"] == pytest.approx(whole["DA"], rel=1e-9)
+
+
+@pytest.mark.parametrize("spacing", [(1.0, 1.0, 1.0), (2.0, 1.0, 1.0)])
+def test_local_thickness_in_slabs_on_a_coarse_lattice(spacing):
+    """Plates 80 voxels apart with a rod: the space's largest sphere needs a
+    lattice step of 2 and halos of about 80 planes; slabs of 160 planes give
+    the whole volume's Tb.Sp and its SD (isotropic and 2:1:1 voxels)."""
+    from skelmorph.chunked import Segmenter
+    from skelmorph.measure.bone import bone_measures
+    from skelmorph.slab_thickness import slab_local_thickness
+    nz = int(806 / spacing[0])
+    z = np.arange(nz) * spacing[0]
+    m = np.zeros((nz, 40, 40), bool)
+    m[(z % 80) < 6] = True
+    m[:, 10:14, 10:14] = True
+    whole = bone_measures(m, spacing)
+    vol = ArrayVolume(m.astype(np.uint8), spacing, "um")
+    limit = 40 * 40 * 40 * int(320 / spacing[0])
+    mean, sd, step, halo = slab_local_thickness(vol, Segmenter("binary", 0), spacing, "space",
+                                                limit)
+    assert step == whole["separation_lattice_step"] == 2
+    assert (nz - 2 * halo) // 16 * 16 < nz  # really cut into slabs
+    assert mean == pytest.approx(whole["Tb.Sp"], rel=1e-6)
+    assert sd == pytest.approx(whole["Tb.Sp.SD"], rel=1e-5)
+    mean, sd, _, _ = slab_local_thickness(vol, Segmenter("binary", 0), spacing, "solid", limit)
+    assert mean == pytest.approx(whole["Tb.Th"], rel=1e-6)
 
 
 def test_real_label_map_in_slabs_equals_in_memory(tmp_path):

@@ -195,7 +195,7 @@ def local_thickness(mask, spacing=None, method="ridge", dist=None):
     return out
 
 
-def bounded_local_thickness(phase, dist, spacing, max_ball=None):
+def bounded_local_thickness(phase, dist, spacing, max_ball=None, step=None):
     """Local thickness with bounded work: balls of at most ``MAX_BALL_VOXELS``.
 
     The painting cost grows with the volume of the balls; in a sparse
@@ -218,6 +218,9 @@ def bounded_local_thickness(phase, dist, spacing, max_ball=None):
     spacing : sequence of float
     max_ball : float, optional
         The radius limit in voxels (default ``MAX_BALL_VOXELS``).
+    step : int, optional
+        The lattice step, when it must be that of a larger volume this is a
+        slab of (:mod:`skelmorph.slab_thickness`); default from ``dist``.
 
     Returns
     -------
@@ -228,7 +231,7 @@ def bounded_local_thickness(phase, dist, spacing, max_ball=None):
     spacing = np.asarray(spacing, float)
     phase = np.asarray(phase, bool)
     largest = float(dist.max(initial=0.0)) / spacing.min()
-    k = max(1, int(largest // (max_ball or MAX_BALL_VOXELS)))
+    k = max(1, int(largest // (max_ball or MAX_BALL_VOXELS))) if step is None else int(step)
     if k == 1:
         return local_thickness(phase, spacing, dist=dist), 1
     sub = tuple(slice(None, None, k) for _ in range(phase.ndim))
