@@ -556,7 +556,7 @@ def check_slab_options(options):
     for name, flag in _NOT_IN_SLABS.items():
         value = options.get(name)
         if name == "measures" and list(value or []) == ["bone"]:
-            continue  # the additive part of the bone set runs in slabs
+            continue  # the bone set runs in slabs (but direct Tb.N, plates and rods)
         if value not in (None, False, [], ()):
             raise InputError(f"this scan is analysed in slabs (in memory it would need more "
                              f"than the memory limit) and {flag}"
