@@ -158,6 +158,94 @@ def _clusters_within(coords, reach):
     return int(csgraph.connected_components(g, directed=False)[0])
 
 
+def _plate_skeleton(n, rows, cols, lens, cbar, local, voxel, flat, shape):
+    """Skeleton voxels of plate material, the number of plates and of
+    plate-plate junction lines (see the module docstring)."""
+    both_r = np.concatenate([rows, cols])
+    both_c = np.concatenate([cols, rows])
+    # Plates: sheet pieces wider than thick.
+    sheet_lab = _components(n, rows, cols, cbar == 2)
+    n_sheets = int(sheet_lab.max()) + 1
+    on = sheet_lab >= 0
+    count = np.bincount(sheet_lab[on], minlength=n_sheets)
+    mean_local = (np.bincount(sheet_lab[on], weights=local[on], minlength=n_sheets)
+                  / np.maximum(count, 1))
+    is_plate = count * voxel ** (2.0 / 3.0) >= (PLATE_ASPECT * mean_local) ** 2
+    plate_vox = np.zeros(n, bool)
+    plate_vox[on] = is_plate[sheet_lab[on]]
+    # Sheet junctions touching a plate join it, then the rims (one voxel).
+    meet = cbar >= 3
+    meet_lab = _components(n, rows, cols, meet)
+    touched = np.unique(meet_lab[both_r[meet[both_r] & plate_vox[both_c]]])
+    plate_vox[meet] = np.isin(meet_lab[meet], touched)
+    rim = np.zeros(n, bool)
+    rim[both_r[plate_vox[both_c]]] = True
+    plate_vox |= rim
+    # Digital crossings leave gaps of a voxel along junction lines: lines of
+    # junction voxels within two voxels of each other are one line.
+    lines = np.flatnonzero(plate_vox & meet)
+    n_pp = _clusters_within(np.stack(np.unravel_index(flat[lines], shape), 1), 2)
+    # Spurs of a plate's rim: rod pieces with a free end, shorter than they
+    # are thick, whose only contact is a plate.  They are plate material.
+    spur = _components(n, rows, cols, ~plate_vox)
+    if spur.max() >= 0:
+        on = spur >= 0
+        k = np.bincount(spur[on])
+        inner = (spur[rows] == spur[cols]) & (spur[rows] >= 0)
+        size = np.bincount(spur[rows][inner], weights=lens[inner], minlength=k.size)
+        thick = np.bincount(spur[on], weights=local[on], minlength=k.size) / k
+        ends = np.bincount(spur[both_r[on[both_r] & plate_vox[both_c]]], minlength=k.size)
+        degree = np.bincount(both_r[on[both_r] & on[both_c]], minlength=n)
+        tip = np.bincount(spur[on], weights=degree[on] <= 1, minlength=k.size)
+        absorb = (size < thick) & (ends > 0) & (tip > 0)
+        plate_vox[on] |= absorb[spur[on]]
+    return plate_vox, int(is_plate.sum()), n_pp
+
+
+def _rods(n, rows, cols, lens, cbar, plate_vox):
+    """Length of every rod, and the numbers of rod-rod and plate-rod junctions."""
+    both_r = np.concatenate([rows, cols])
+    both_c = np.concatenate([cols, rows])
+    rod_vox = ~plate_vox
+    keep = rod_vox[both_r] & rod_vox[both_c]
+    rod_degree = np.bincount(both_r[keep], minlength=n)
+    # Small sheets left where thick rods meet are part of the junction.
+    rod_junction = rod_vox & ((rod_degree >= 3) | (cbar >= 2))
+    seg = _components(n, rows, cols, rod_vox & ~rod_junction)
+    n_rods = int(seg.max()) + 1
+    junc_lab = _components(n, rows, cols, rod_junction)
+    hit = rod_junction[both_r] & (seg[both_c] >= 0)
+    junc_touch = np.unique(np.stack([junc_lab[both_r[hit]], seg[both_c[hit]]], 1), axis=0)
+    n_rr = int(np.sum(np.bincount(junc_touch[:, 0], minlength=int(junc_lab.max()) + 1) >= 2))
+    contact = np.zeros(n, bool)
+    contact[both_r[rod_vox[both_r] & plate_vox[both_c]]] = True
+    n_pr = int(_components(n, rows, cols, contact).max()) + 1
+    # Rod length: links inside a rod, and links from it into junctions and plates.
+    s_r, s_c = seg[rows], seg[cols]
+    inside = (s_r == s_c) & (s_r >= 0)
+    into = (s_r >= 0) & (s_c < 0)
+    outof = (s_c >= 0) & (s_r < 0)
+    seg_len = (np.bincount(s_r[inside], weights=lens[inside], minlength=n_rods)
+               + np.bincount(s_r[into], weights=lens[into], minlength=n_rods)
+               + np.bincount(s_c[outof], weights=lens[outof], minlength=n_rods))
+    return seg_len, n_rr, n_pr
+
+
+def _nearest_kind(mask, flat, plate_vox, spacing):
+    """Solid voxels nearer a plate skeleton voxel than a rod one (ties: plate)."""
+    shape = mask.shape
+    near = np.ones(mask.size, bool)
+    near[flat[plate_vox]] = False
+    d_plate = distance_map_sq(near.reshape(shape), spacing)
+    near[:] = True
+    near[flat[~plate_vox]] = False
+    d_rod = distance_map_sq(near.reshape(shape), spacing)
+    plate_solid = np.less_equal(d_plate, d_rod, out=near.reshape(shape))
+    del d_plate, d_rod
+    plate_solid &= mask
+    return plate_solid
+
+
 def plate_rod_measures(mask, spacing, thickness=None, dsq=None, skeleton=None, tv=None,
                        return_labels=False):
     """Plate and rod volume fractions, sizes and junction densities.
@@ -207,82 +295,12 @@ def plate_rod_measures(mask, spacing, thickness=None, dsq=None, skeleton=None, t
         del dsq  # only its values on the skeleton are needed
     n = flat.size
     rows, cols, lens = _links(flat, m.shape, sp)
-    both_r = np.concatenate([rows, cols])
-    both_c = np.concatenate([cols, rows])
-    # Plates: sheet pieces wider than thick.
-    sheet_lab = _components(n, rows, cols, cbar == 2)
-    n_sheets = int(sheet_lab.max()) + 1
-    on = sheet_lab >= 0
-    count = np.bincount(sheet_lab[on], minlength=n_sheets)
-    mean_local = np.bincount(sheet_lab[on], weights=local[on], minlength=n_sheets) / np.maximum(count, 1)
-    is_plate = count * voxel ** (2.0 / 3.0) >= (PLATE_ASPECT * mean_local) ** 2
-    in_plate = np.zeros(n, bool)
-    in_plate[on] = is_plate[sheet_lab[on]]
-    # Sheet junctions touching a plate join it, then the rims (one voxel).
-    meet = cbar >= 3
-    meet_lab = _components(n, rows, cols, meet)
-    hit = meet[both_r] & in_plate[both_c]
-    meet_touch = np.unique(np.stack([meet_lab[both_r[hit]], sheet_lab[both_c[hit]]], 1), axis=0)
-    n_meet = int(meet_lab.max()) + 1
-    plates_at_meet = np.bincount(meet_touch[:, 0], minlength=n_meet)
-    plate_vox = in_plate.copy()
-    plate_vox[meet] = plates_at_meet[meet_lab[meet]] > 0
-    rim = np.zeros(n, bool)
-    rim[both_r[plate_vox[both_c]]] = True
-    plate_vox |= rim
-    # Digital crossings leave gaps of a voxel along junction lines: lines of
-    # junction voxels within two voxels of each other are one line.
-    touching = np.flatnonzero(plate_vox & meet)
-    n_pp = _clusters_within(np.stack(np.unravel_index(flat[touching], m.shape), 1), 2)
-    # Spurs of a plate's rim: rod pieces shorter than they are thick whose
-    # only contact is one plate.  They are plate material.
-    spur = _components(n, rows, cols, ~plate_vox)
-    if spur.max() >= 0:
-        on = spur >= 0
-        k = np.bincount(spur[on])
-        inner = (spur[rows] == spur[cols]) & (spur[rows] >= 0)
-        size = np.bincount(spur[rows][inner], weights=lens[inner], minlength=k.size)
-        thick = np.bincount(spur[on], weights=local[on], minlength=k.size) / k
-        ends = np.bincount(spur[both_r[on[both_r] & plate_vox[both_c]]], minlength=k.size)
-        tip = np.bincount(spur[on], weights=(np.bincount(both_r[on[both_r] & on[both_c]],
-                                                        minlength=n)[on] <= 1), minlength=k.size)
-        absorb = (size < thick) & (ends > 0) & (tip > 0)
-        plate_vox[on] |= absorb[spur[on]]
-    # Rods: the rest; junctions where three or more rod voxels meet.
+    plate_vox, n_plates, n_pp = _plate_skeleton(n, rows, cols, lens, cbar, local, voxel,
+                                                flat, m.shape)
     rod_vox = ~plate_vox
-    keep = rod_vox[both_r] & rod_vox[both_c]
-    rod_degree = np.bincount(both_r[keep], minlength=n)
-    # Small sheets left where thick rods meet are part of the junction.
-    rod_junction = rod_vox & ((rod_degree >= 3) | (cbar >= 2))
-    seg = _components(n, rows, cols, rod_vox & ~rod_junction)
-    n_rods = int(seg.max()) + 1
-    junc_lab = _components(n, rows, cols, rod_junction)
-    hit = rod_junction[both_r] & (seg[both_c] >= 0)
-    junc_touch = np.unique(np.stack([junc_lab[both_r[hit]], seg[both_c[hit]]], 1), axis=0)
-    n_rr = int(np.sum(np.bincount(junc_touch[:, 0], minlength=int(junc_lab.max()) + 1) >= 2))
-    contact = np.zeros(n, bool)
-    contact[both_r[rod_vox[both_r] & plate_vox[both_c]]] = True
-    n_pr = int(_components(n, rows, cols, contact).max()) + 1
-    # Rod length: links inside a rod, and links from it into junctions and plates.
-    s_r, s_c = seg[rows], seg[cols]
-    inside = (s_r == s_c) & (s_r >= 0)
-    into = (s_r >= 0) & (s_c < 0)
-    outof = (s_c >= 0) & (s_r < 0)
-    seg_len = (np.bincount(s_r[inside], weights=lens[inside], minlength=n_rods)
-               + np.bincount(s_r[into], weights=lens[into], minlength=n_rods)
-               + np.bincount(s_c[outof], weights=lens[outof], minlength=n_rods))
-    n_plates = int(is_plate.sum())
-    # Each solid voxel goes with its nearest skeleton voxel.
-    shape = m.shape
-    near = np.ones(m.size, bool)
-    near[flat[plate_vox]] = False
-    d_plate = distance_map_sq(near.reshape(shape), sp)
-    near[:] = True
-    near[flat[~plate_vox]] = False
-    d_rod = distance_map_sq(near.reshape(shape), sp)
-    plate_solid = np.less_equal(d_plate, d_rod, out=near.reshape(shape))
-    del d_plate, d_rod
-    plate_solid &= m
+    seg_len, n_rr, n_pr = _rods(n, rows, cols, lens, cbar, plate_vox)
+    n_rods = len(seg_len)
+    plate_solid = _nearest_kind(m, flat, plate_vox, sp)
     rod_solid = m & ~plate_solid
     tv = m.size * voxel if tv is None else float(tv)
     pbv = float(np.count_nonzero(plate_solid)) * voxel
