@@ -547,6 +547,29 @@ def _check_sets(sets, ndim):
                          f"this one is {ndim}D")
 
 
+#: Parts of measure sets that can be skipped: key in ``skipped_measures``, name.
+_PARTS = {"flow": "flow measures", "vein_orders": "vein orders"}
+
+
+def _skip(summary, key, exc):
+    """Record and warn that a part of a measure set could not be computed."""
+    note = f"{_PARTS[key]} skipped: {exc}"
+    summary.setdefault("skipped_measures", {})[key] = note
+    warnings.warn(note, SegmentationWarning, stacklevel=4)
+
+
+def _rule_root(graph, root_rule, summary, key):
+    """The root node chosen by the ``--root`` rule, or None (recorded under
+    ``key`` and warned) when the rule finds none."""
+    from .rooting import choose_root
+    try:
+        return int(choose_root(graph, root_rule[0], point=root_rule[1],
+                               face=root_rule[2] or "z-"))
+    except InputError as exc:
+        _skip(summary, key, exc)
+        return None
+
+
 def _field_measures(sets, graph, mask, spacing, unit, roi, thickness_map, timings, bar,
                     root_rule=("thickest", None, None), major_vein_width=None):
     """Bone, vessel and venation measure sets, as asked."""
@@ -588,17 +611,14 @@ def _field_measures(sets, graph, mask, spacing, unit, roi, thickness_map, timing
             out["bifurcations"] = bif
             # Poiseuille flow from the root (the inlet) to the other free ends.
             from .measure.flow import flow_measures
-            from .rooting import choose_root
-            try:
-                inlet = choose_root(graph, root_rule[0], point=root_rule[1],
-                                    face=root_rule[2] or "z-")
-                fsum, fcols = flow_measures(graph, int(inlet))
-                out["summary"].update(fsum)
-                out["branch_columns"].update(fcols)
-            except InputError as exc:
-                note = f"flow measures skipped: {exc}"
-                out["summary"].setdefault("skipped_measures", {})["flow"] = note
-                warnings.warn(note, SegmentationWarning, stacklevel=3)
+            inlet = _rule_root(graph, root_rule, out["summary"], "flow")
+            if inlet is not None:
+                try:
+                    fsum, fcols = flow_measures(graph, inlet)
+                    out["summary"].update(fsum)
+                    out["branch_columns"].update(fcols)
+                except InputError as exc:
+                    _skip(out["summary"], "flow", exc)
         elif name == "cortical":
             from .measure.cortical import cortical_measures
             summ, slices = cortical_measures(mask, spacing, unit)
@@ -608,15 +628,7 @@ def _field_measures(sets, graph, mask, spacing, unit, roi, thickness_map, timing
             from .measure.loops import loop_hierarchy
             from .measure.venation import venation_measures
             origin = graph.meta.get("roi_origin")
-            from .rooting import choose_root
-            try:  # the leaf base, by the root rule, for the vein orders
-                base = int(choose_root(graph, root_rule[0], point=root_rule[1],
-                                       face=root_rule[2] or "z-"))
-            except InputError as exc:
-                base = None
-                note = f"vein orders skipped: {exc}"
-                out["summary"].setdefault("skipped_measures", {})["vein_orders"] = note
-                warnings.warn(note, SegmentationWarning, stacklevel=3)
+            base = _rule_root(graph, root_rule, out["summary"], "vein_orders")  # leaf base
             vsum = venation_measures(graph, mask, spacing, unit, region=roi, origin=origin,
                                      major_width=major_vein_width, root=base)
             if "branch_orders" in vsum:

@@ -109,3 +109,13 @@ def test_bad_root():
     g = sm.skeleton_graph(mask, (1.0, 1.0))
     with pytest.raises(InputError, match="root node"):
         vein_orders(g, g.n_nodes + 3)
+
+
+def test_a_root_rule_that_finds_no_root_skips_the_orders_with_a_note():
+    from skelmorph.pipeline import _rule_root
+    from skelmorph.pipeline import SegmentationWarning
+    g = sm.skeleton_graph(_leaf()[0], (1.0, 1.0))
+    summary = {}
+    with pytest.warns(SegmentationWarning, match="vein orders skipped"):
+        assert _rule_root(g, ("point", None, None), summary, "vein_orders") is None
+    assert "point" in summary["skipped_measures"]["vein_orders"]
