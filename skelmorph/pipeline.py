@@ -647,6 +647,16 @@ def _field_measures(sets, graph, mask, spacing, unit, roi, thickness_map, timing
     return out
 
 
+def _one_panel_figure(path, size, title, draw):
+    """Draw one panel with ``draw(ax)``, title it as research measurements, save it."""
+    from .report.figures import new_axes, save
+    fig, ax = new_axes(1, 1, size=size, fixed=True)
+    draw(ax[0, 0])
+    ax[0, 0].set_title(f"{title} (research measurements)", fontsize=8)
+    save(fig, path)
+    return path
+
+
 def write_results(result, out, figures=True):
     """Write the standard result files of one analysis into folder ``out``."""
     out = Path(out)
@@ -691,21 +701,18 @@ def write_results(result, out, figures=True):
         save(fig, out / "plate_rod.png")
         files.append(out / "plate_rod.png")
     if figures and "loop_hierarchy" in result.tables:
-        from .report.figures import new_axes, plot_loop_hierarchy, save
-        fig, ax = new_axes(1, 1, size=(5.8, 3.4), fixed=True)
-        plot_loop_hierarchy(result.tables["loop_hierarchy"], ax[0, 0], unit=g.unit)
-        ax[0, 0].set_title("nesting tree of the areoles, veins removed thinnest first "
-                           "(research measurements)", fontsize=8)
-        save(fig, out / "loop_hierarchy.png")
-        files.append(out / "loop_hierarchy.png")
+        from .report.figures import plot_loop_hierarchy
+        files.append(_one_panel_figure(
+            out / "loop_hierarchy.png", (5.8, 3.4),
+            "nesting tree of the areoles, veins removed thinnest first",
+            lambda ax: plot_loop_hierarchy(result.tables["loop_hierarchy"], ax, unit=g.unit)))
     if figures and "vein_order" in result.branch_columns:
-        from .report.figures import new_axes, plot_vein_orders, save
-        fig, ax = new_axes(1, 1, size=(5.8, 4.6), fixed=True)
-        plot_vein_orders(g, result.branch_columns["vein_order"], ax[0, 0], unit=g.unit)
-        ax[0, 0].set_title("vein orders by width and continuity from the base "
-                           "(research measurements)", fontsize=8)
-        save(fig, out / "vein_orders.png")
-        files.append(out / "vein_orders.png")
+        from .report.figures import plot_vein_orders
+        files.append(_one_panel_figure(
+            out / "vein_orders.png", (5.8, 4.6),
+            "vein orders by width and continuity from the base",
+            lambda ax: plot_vein_orders(g, result.branch_columns["vein_order"], ax,
+                                        unit=g.unit)))
     if figures and "flow" in result.branch_columns:
         from .report.figures import new_axes, plot_flow, save
         fig, ax = new_axes(1, 1, size=(5.8, 4.6), fixed=True)
