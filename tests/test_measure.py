@@ -6,6 +6,7 @@ import numpy as np
 import pytest
 from hypothesis import given
 from hypothesis import strategies as st
+from scipy import ndimage as ndi
 
 import skelmorph as sm
 from skelmorph.cli import main
@@ -118,6 +119,23 @@ def test_ridge_thickness_equals_brute_force(seed, spacing):
     a = local_thickness(m, spacing)
     b = local_thickness(m, spacing, method="all")
     np.testing.assert_array_equal(a, b)
+
+
+@pytest.mark.parametrize("spacing", [(1.0, 1.0, 1.0), (1.0, 0.7, 1.3)])
+def test_ridge_thickness_with_a_short_containment_table(monkeypatch, spacing):
+    """Balls larger than the containment table fall back to the geometric
+    test r(n) >= r(c) + |n - c| and still give the brute-force map
+    (Hildebrand & Rüegsegger 1997 definition)."""
+    from skelmorph.measure import thickness
+    rng = np.random.default_rng(3)
+    m = np.zeros((24, 26, 22), bool)
+    for _ in range(5):
+        m |= ball(m.shape, rng.uniform(0, 22, 3), rng.uniform(3, 8))
+    b = local_thickness(m, spacing, method="all")
+    monkeypatch.setattr(thickness, "RIDGE_TABLE_OFFSETS", 40)
+    np.testing.assert_array_equal(local_thickness(m, spacing), b)
+    centres = thickness.ridge_centres(ndi.distance_transform_edt(m, sampling=spacing), spacing)
+    assert 0 < len(centres) < m.sum()
 
 
 def test_mil_plates_vs_lattice():

@@ -7,9 +7,13 @@ tau(x) = 2 max{ r : x in B(c, r) inside X }.  With r(c) the Euclidean
 distance from voxel centre c to the nearest background voxel centre, the open
 ball |x - c| < r(c) holds no background centre, so tau(x) = 2 max{ r(c) :
 |x - c| < r(c) }.  Only centres whose ball is not contained in a neighbour's
-ball matter (r(n) >= r(c) + |n - c| means B(c) lies inside B(n)); these
-"distance-ridge" centres are painted largest first, one radius group at a
-time, every ball's voxels reached by flat-index offsets, and a voxel keeps the
+ball of at least its radius matter (Hildebrand & Rüegsegger's distance
+ridge).  Containment is tested on the painted voxel sets, not on the
+geometric balls: a table gives, for each radius and neighbour, the radius
+the neighbour needs to cover every offset of the smaller ball, which drops
+far more centres than r(n) >= r(c) + |n - c| and leaves the map unchanged
+(tested against painting every voxel).  The ridge centres are painted
+largest first, one radius group at a time, every ball's voxels reached by flat-index offsets, and a voxel keeps the
 first (largest) value it receives.  The balls of one radius are painted by a
 compiled kernel, in parallel.
 """
@@ -45,17 +49,33 @@ def _paint(out, centres, deltas, value):
 
 
 @numba.njit(parallel=True, cache=True, nogil=True)
-def _ridge_flags(flat, plane_len, n_planes, deltas, steps, keep):
+def _ridge_flags(flat, plane_len, n_planes, deltas, steps, table_len, need, complete, keep):
     """keep[p] = 1 for voxels p > 0 of the padded volume (planes 1..n-2)
-    whose ball is not inside a neighbour's: flat[p + d] < flat[p] + step."""
+    whose painted ball is not inside a neighbour's painted ball.
+
+    The ball of p paints the offsets o with |o| < r(p): the first m of
+    ``table_len`` (offset lengths, ascending).  ``need[m - 1, j]`` is the
+    largest |o - delta_j| among them, so neighbour j paints all of them
+    when r(n) > need[m - 1, j].  Radii beyond the table (when it is not
+    ``complete``) use the geometric bound |o - delta| < r + |delta|."""
+    n_table = len(table_len)
     for z in numba.prange(1, n_planes - 1):
         for p in range(z * plane_len, (z + 1) * plane_len):
             r = flat[p]
             if r <= 0:
                 continue
+            m = np.searchsorted(table_len, r)  # offsets with |o| < r
+            in_table = m < n_table or complete
             ok = 1
             for j in range(len(deltas)):
-                if flat[p + deltas[j]] >= r + steps[j]:
+                rn = flat[p + deltas[j]]
+                if rn < r:
+                    continue
+                if in_table:
+                    if rn > need[m - 1, j] * (1.0 + 1e-12):
+                        ok = 0
+                        break
+                elif rn >= r + steps[j]:
                     ok = 0
                     break
             keep[p] = ok
@@ -85,25 +105,52 @@ def _repad(flat, shape, pad_from, pad_to):
         flat[i] = out
 
 
+#: Offsets in the containment table of the ridge test (26 float64 each);
+#: larger balls fall back to the geometric bound.
+RIDGE_TABLE_OFFSETS = 2 ** 17
+
+
+def _containment_table(r_max, spacing, offs):
+    """Offset lengths up to ``r_max`` (ascending), the running maximum of
+    |o - delta_j| over them for every neighbour offset delta_j, and whether
+    the table holds every offset shorter than ``r_max``."""
+    off, length = _ball_offsets(r_max, spacing)
+    complete = len(off) <= RIDGE_TABLE_OFFSETS
+    off, length = off[:RIDGE_TABLE_OFFSETS], length[:RIDGE_TABLE_OFFSETS]
+    need = np.empty((len(off), len(offs)))
+    for j, delta in enumerate(offs):  # 26 columns, each vectorised
+        need[:, j] = np.maximum.accumulate(np.linalg.norm((off - delta) * spacing, axis=1))
+    return length, need, complete
+
+
 def _ridge_points(dist, spacing):
-    """Distance-ridge voxels as flat indices into ``dist`` padded by one
-    voxel, and their radii: one compiled pass, 1 byte of flags per voxel."""
+    """Ridge voxels as flat indices into ``dist`` padded by one voxel, and
+    their radii: one compiled pass, 1 byte of flags per voxel.
+
+    A voxel is dropped when the voxel set its ball paints lies inside the
+    set a neighbour's ball of at least its radius paints: every voxel it
+    would paint gets at least its value from the neighbour, so the map is
+    unchanged.  On digital balls this drops 70-80 % of a foam's voxels; the
+    geometric test r(n) >= r(c) + |n - c| dropped 10 %.
+    """
     spacing = np.asarray(spacing, float)
     pad = np.pad(np.asarray(dist, np.float32), 1)
     strides = c_strides(pad.shape)
     offs = neighbour_offsets(dist.ndim)
     deltas = (offs @ strides).astype(np.int64)
     steps = np.linalg.norm(offs * spacing, axis=1)
+    table_len, need, complete = _containment_table(float(pad.max(initial=0.0)), spacing, offs)
     keep = np.zeros(pad.size, np.uint8)
     plane = int(np.prod(pad.shape[1:]))
-    _ridge_flags(pad.ravel(), plane, pad.shape[0], deltas, steps, keep)
+    _ridge_flags(pad.ravel(), plane, pad.shape[0], deltas, steps, table_len, need, complete,
+                 keep)
     points = np.flatnonzero(keep)
     del keep
     return points, pad.ravel()[points]
 
 
 def ridge_centres(dist, spacing):
-    """Foreground voxels whose inscribed ball is not inside a neighbour's ball.
+    """Foreground voxels whose painted ball is not inside a neighbour's.
 
     One compiled pass over the padded distance map (1 byte per voxel of
     flags besides it).
