@@ -284,6 +284,10 @@ def _slabs(nz, plane, halo, slab_voxels=None):
         yield z0, z1, max(0, z0 - halo), min(nz, z1 + 1 + halo)
 
 
+def _rows(roi, lo, hi):
+    return None if roi is None else roi[lo:hi]
+
+
 def _own_faces(verts, faces, spacing, z0, z1, lo):
     """Faces of the slab's own cube layers [z0, z1) (by centre), so that
     slabs sharing halo planes never count a triangle twice."""
@@ -333,23 +337,30 @@ def surface_and_smi(mask, spacing, bv=None, sigma=1.0, roi=None, slab_voxels=Non
     votes = [0.0, 0]
     plane = m.shape[1] * m.shape[2]
     for z0, z1, lo, hi in _slabs(m.shape[0], plane, halo, slab_voxels):
+        # The binary mesh needs no halo: planes z0..z1 hold exactly the cube
+        # layers z0..z1-1, and each cube's triangles depend on its own 8
+        # voxels (so all of them are the slab's own, including triangles
+        # lying flat on its last plane).  Degenerate triangles have no area,
+        # and dropping them took most of the meshing time, so they are kept.
+        part = m[z0:z1 + 1].astype(np.float32)
+        if part.min() < part.max():
+            verts, faces, _, _ = marching_cubes(part, level=0.5, spacing=spacing,
+                                                allow_degenerate=True)
+            faces = _inside_faces(verts, faces, spacing, _rows(roi, z0, z1 + 1))
+            bs += float(mesh_areas(verts.astype(np.float64), np.zeros((len(verts), 3)), faces,
+                                   0.0)[0])
         part = m[lo:hi].astype(np.float32)
-        sub_roi = None if roi is None else roi[lo:hi]
         if part.min() == part.max():
             continue  # no surface crosses this slab
-        verts, faces, _, _ = marching_cubes(part, level=0.5, spacing=spacing,
-                                            allow_degenerate=False)
-        faces = _own_faces(verts, _inside_faces(verts, faces, spacing, sub_roi), sp, z0, z1, lo)
-        bs += float(mesh_areas(verts.astype(np.float64), np.zeros((len(verts), 3)), faces,
-                               0.0)[0])
         if sigma:
             # Smooth with the true volume edges where the slab has them.
             part = ndi.gaussian_filter(part, sigma)
         if part.min() >= 0.5 or part.max() <= 0.5:
             continue
         verts, faces, normals, _ = marching_cubes(part, level=0.5, spacing=spacing,
-                                                  allow_degenerate=False)
-        faces = _own_faces(verts, _inside_faces(verts, faces, spacing, sub_roi), sp, z0, z1, lo)
+                                                  allow_degenerate=True)
+        faces = _own_faces(verts, _inside_faces(verts, faces, spacing, _rows(roi, lo, hi)), sp,
+                           z0, z1, lo)
         if not len(faces):
             continue
         # float64: dS/dr is a small difference of two large areas.
