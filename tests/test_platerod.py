@@ -197,3 +197,27 @@ def test_analysis_draws_the_plate_rod_figure(tmp_path):
     # Plate orange has more red than blue, rod blue the reverse; white is even.
     assert all((im[..., 2] <= im[..., 0] + 1e-9).all() for im in images)
     assert any((im[..., 2] < im[..., 0] - 0.1).any() for im in images)
+
+
+@pytest.mark.parametrize("spacing", [(1.0, 1.0, 1.0), (1.5, 1.0, 1.0)])
+@pytest.mark.parametrize("density", [0.01, 0.0003])
+def test_nearest_kind_in_slabs_equals_whole_volume(spacing, density):
+    """Slabs of a few planes (halos grown where a slab cannot decide) give the
+    same plate/rod split of the solid as two whole-volume distance maps
+    (scipy's exact Euclidean transform as the reference)."""
+    from scipy import ndimage as ndi
+
+    from skelmorph.measure.platerod import _nearest_kind
+    rng = np.random.default_rng(5)
+    mask = rng.random((40, 30, 30)) < 0.3
+    flat = np.flatnonzero(rng.random(mask.size) < density)
+    plate = rng.random(flat.size) < 0.4
+    near_p, near_r = np.ones(mask.size, bool), np.ones(mask.size, bool)
+    near_p[flat[plate]] = False
+    near_r[flat[~plate]] = False
+    d_p = ndi.distance_transform_edt(near_p.reshape(mask.shape), sampling=spacing)
+    d_r = ndi.distance_transform_edt(near_r.reshape(mask.shape), sampling=spacing)
+    expected = (d_p <= d_r) & mask
+    for slab_voxels in (30 * 30, 30 * 30 * 7, mask.size):
+        got = _nearest_kind(mask, flat, plate, spacing, slab_voxels=slab_voxels)
+        np.testing.assert_array_equal(got, expected)
