@@ -35,11 +35,13 @@ Resuming
     atomically and named after what determines it; a killed run resumes
     from the slabs it finished.
 
-Segmentation in slabs is per voxel: binary volumes, label maps
-(``label``) and thresholds (given, or Otsu's from a histogram streamed
-over the slabs).  Filters and clean-ups that need neighbourhoods
-(smoothing, vessel enhancement, hysteresis, speck removal, hole filling)
-and regions of interest are not available in slabs yet.
+Segmentation in slabs: binary volumes, label maps (``label``) and
+thresholds (given, or Otsu's from a histogram streamed over the slabs),
+after an optional Gaussian smoothing (:class:`skelmorph.volume.SmoothedVolume`),
+followed by the speck removal and hole filling of the analysis in memory
+(:class:`CleanedVolume`); each reads the extra planes it needs, so the
+slab's mask equals the whole volume's.  Vessel enhancement, hysteresis,
+filling every hole and regions of interest are not available in slabs yet.
 """
 
 from __future__ import annotations
@@ -56,8 +58,10 @@ import numpy as np
 
 from .errors import InputError
 from .io import _available_memory, atomic_path
+from .volume import Volume
 
-__all__ = ["parse_memory", "memory_limit_bytes", "plan_slabs", "Segmenter", "survey", "chunked_skeleton",
+__all__ = ["parse_memory", "memory_limit_bytes", "plan_slabs", "Segmenter", "survey",
+           "smoothed_volume", "cleaned_volume", "chunked_skeleton",
            "chunked_cavities", "chunked_branch_volumes", "chunked_graph",
            "chunked_bone_measures", "slab_volume", "check_slab_options", "LazyMask",
            "SLAB_ALIGN", "BYTES_PER_VOXEL"]
@@ -172,6 +176,103 @@ class Segmenter:
 
     def key(self):
         return [self.mode, float(self.value), bool(self.dark)]
+
+
+def smoothed_volume(volume, sigma, slab_planes=32):
+    """``volume`` through a Gaussian of ``sigma`` (physical units), for grey
+    scans analysed in slabs (:class:`skelmorph.volume.SmoothedVolume`).
+
+    As in memory, a binary image is refused: planes are read until one
+    holds a third value (at once for a grey scan)."""
+    from .volume import SmoothedVolume
+    try:
+        sigma = float(sigma)
+    except (TypeError, ValueError):
+        sigma = float("nan")
+    if not np.isfinite(sigma) or sigma <= 0:
+        raise InputError(f"--smooth must be a positive size, not {sigma!r}")
+    values = set()
+    for a in range(0, volume.shape[0], slab_planes):
+        s = volume.planes(a, min(a + slab_planes, volume.shape[0]))
+        for sample in (s[:, ::7, ::7], s):  # a sparse look first: grey shows at once
+            values.update(np.unique(sample)[:3].tolist())
+            if len(values) > 2:
+                break
+        if len(values) > 2:
+            return SmoothedVolume(volume, sigma)
+    raise InputError("the image is already binary: --smooth, --enhance and --hysteresis "
+                     "apply to grey images only")
+
+
+#: Deepest reach (planes on each side) of the clean-ups in slabs.
+MAX_CLEAN_REACH = 256
+
+
+class CleanedVolume(Volume):
+    """Mask planes of ``base`` segmented by ``seg``, with specks of at most
+    ``speck`` voxels removed and enclosed holes of at most ``hole`` voxels
+    filled, equal to the clean-ups of the whole volume
+    (:func:`skelmorph.segment.remove_specks`, :func:`~skelmorph.segment.fill_holes`).
+
+    A component of n voxels spans at most n planes.  So each request reads
+    ``speck + hole`` extra planes on each side; a component touching a face
+    where the read was cut is left as it is (it may go on beyond), and what
+    is then exact shrinks by ``speck`` planes after the speck removal and by
+    ``hole`` planes after the hole filling, which leaves the planes asked for.
+    """
+
+    def __init__(self, base, seg, speck, hole):
+        super().__init__(base.shape, np.uint8, base.spacing, base.unit,
+                         f"{base.source} (mask {seg.key()}, specks <= {speck} voxels, "
+                         f"holes <= {hole} voxels)")
+        self.base, self.seg, self.speck, self.hole = base, seg, int(speck), int(hole)
+        self.kind = f"{base.kind}, cleaned"
+
+    def planes(self, start, stop):
+        from .segment import fill_holes, remove_specks
+        nz = self.shape[0]
+        reach = self.speck + self.hole
+        lo, hi = max(0, start - reach), min(nz, stop + reach)
+        mask = self.seg(self.base.planes(lo, hi))
+        if self.speck:
+            mask = remove_specks(mask, self.speck, keep_faces=(lo > 0, hi < nz))
+            a = lo + (self.speck if lo > 0 else 0)
+            b = hi - (self.speck if hi < nz else 0)
+            mask, lo, hi = mask[a - lo:b - lo], a, b
+        if self.hole:  # a hole touching a cut face is not enclosed there
+            mask = fill_holes(mask, self.hole)
+        return mask[start - lo:stop - lo].astype(np.uint8)
+
+
+def cleaned_volume(volume, seg, spacing, min_object_size=None, max_hole_size=None):
+    """The volume seen as a cleaned mask, as :func:`skelmorph.segment.segment_image`
+    cleans in memory (grey input: specks and holes of at most 3^3 voxels by
+    default; binary input and labels: none), and the steps for the record.
+
+    Returns ``(volume, seg, steps)``; the volume unchanged when there is
+    nothing to clean.
+    """
+    from .segment import _DEFAULT_CLEAN_VOXELS, _voxel_count
+    default = 0 if seg.mode in ("binary", "label") else _DEFAULT_CLEAN_VOXELS[3]
+    if max_hole_size is not None and np.isinf(max_hole_size):
+        raise InputError("this scan is analysed in slabs, where holes can be filled only up "
+                         "to a size; give --max-hole-size a number, or raise --memory-limit")
+    speck = _voxel_count(min_object_size, spacing) if min_object_size is not None else default
+    hole = _voxel_count(max_hole_size, spacing) if max_hole_size is not None else default
+    if speck + hole > MAX_CLEAN_REACH:
+        raise InputError(f"in slabs, specks and holes can reach at most {MAX_CLEAN_REACH} "
+                         f"planes together; --min-object-size and --max-hole-size ask for "
+                         f"{speck + hole} voxels")
+    if not speck and not hole:
+        return volume, seg, []
+    voxel = float(np.prod(spacing))
+    steps = []
+    if speck:
+        steps.append({"step": "speck removal", "max_size": speck * voxel, "max_voxels": speck})
+    if hole:
+        steps.append({"step": "hole filling", "max_size": float(hole * voxel)})
+    cleaned = CleanedVolume(volume, seg, speck, hole)
+    return cleaned, Segmenter("binary", 0.0, False, list(seg.steps) + steps), steps
 
 
 def _histogram_otsu(counts, centres):
@@ -545,10 +646,9 @@ def slab_volume(path, spacing, unit, memory_limit, sets):
 
 
 #: Options that need more than one voxel at a time, with their flags.
-_NOT_IN_SLABS = {"channel": "--channel", "roi": "--roi", "smooth": "--smooth",
-                 "enhance": "--enhance", "hysteresis": "--hysteresis",
-                 "min_object_size": "--min-object-size", "max_hole_size": "--max-hole-size",
-                 "measures": "--measures", "thickness_map": "--thickness-map"}
+_NOT_IN_SLABS = {"channel": "--channel", "roi": "--roi", "enhance": "--enhance",
+                 "hysteresis": "--hysteresis", "measures": "--measures",
+                 "thickness_map": "--thickness-map"}
 
 
 def check_slab_options(options):

@@ -260,7 +260,8 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
                                 max_hole_size=max_hole_size, thinning=thinning,
                                 measures=sets, thickness_map=thickness_map))
         graph, summary, prep_warnings = _graph_in_slabs(
-            volume, out, threshold=threshold, dark=dark, label=label, prune=prune,
+            volume, out, threshold=threshold, dark=dark, label=label, smooth=smooth,
+            min_object_size=min_object_size, max_hole_size=max_hole_size, prune=prune,
             prune_factor=prune_factor, min_branch_length=min_branch_length,
             merge_junctions=merge_junctions, extend_tips=extend_tips, smoothing=smoothing,
             memory_limit=memory_limit, workers=workers, scheduler=scheduler, bar=bar,
@@ -423,11 +424,21 @@ def _graph_in_memory(image, source, spacing, unit, sets, bar, timings, root, roo
 
 def _graph_in_slabs(volume, out, *, threshold, dark, label, prune, prune_factor,
                     min_branch_length, merge_junctions, extend_tips, smoothing, memory_limit,
-                    workers, scheduler, bar, timings, sets=()):
+                    workers, scheduler, bar, timings, sets=(), smooth=None,
+                    min_object_size=None, max_hole_size=None):
     """Survey, thin in slabs and build the graph of a scan too large for memory."""
-    from .chunked import chunked_graph, survey, work_folder
+    from .chunked import chunked_graph, cleaned_volume, smoothed_volume, survey, work_folder
     t0 = time.perf_counter()
+    if smooth:
+        if label is not None:  # a label is binary, as in memory
+            raise InputError("the image is already binary: --smooth, --enhance and "
+                             "--hysteresis apply to grey images only")
+        volume = smoothed_volume(volume, smooth)  # every slab is read through the filter
     seg = survey(volume, threshold=threshold, dark=dark, label=label, progress=bar.enabled)
+    if smooth:
+        seg.steps.insert(0, {"step": "gaussian smoothing", "sigma": volume.sigma})
+    # Specks and small holes, as in memory; every slab is read through them.
+    volume, seg, _ = cleaned_volume(volume, seg, volume.spacing, min_object_size, max_hole_size)
     timings["read"] = time.perf_counter() - t0
     bar.update(note="surveyed")
     limit = memory_limit  # bytes, decided by analyze()

@@ -64,10 +64,12 @@ def _voxel_count(size, spacing):
     return int(np.floor(size / float(np.prod(spacing))))
 
 
-def remove_specks(mask, max_voxels, connectivity=None):
+def remove_specks(mask, max_voxels, connectivity=None, keep_faces=(False, False)):
     """Remove connected foreground components of at most ``max_voxels`` voxels.
 
     Components use full (8/26) connectivity unless ``connectivity`` is given.
+    ``keep_faces`` (first, last) keeps the components touching the first or
+    last plane of axis 0 (where a slab of a larger volume was cut).
     """
     if max_voxels < 1:
         return mask
@@ -78,6 +80,9 @@ def remove_specks(mask, max_voxels, connectivity=None):
     sizes = np.bincount(labels.ravel())
     small = sizes <= max_voxels
     small[0] = False
+    for face, keep in zip((0, -1), keep_faces):
+        if keep:
+            small[np.unique(labels[face])] = False
     return mask & ~small[labels]
 
 

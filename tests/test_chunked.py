@@ -151,6 +151,87 @@ def test_grey_scan_in_slabs_uses_a_streamed_otsu_threshold(tmp_path):
     np.testing.assert_array_equal(seg(grey), grey > threshold_otsu(grey))
 
 
+@pytest.mark.parametrize("spacing", [(1.0, 1.0, 1.0), (2.0, 1.0, 0.8)])
+def test_smoothed_planes_equal_the_whole_filtered_volume(spacing):
+    """A slab read through the Gaussian (its reach of extra planes filtered
+    with it) equals scipy's gaussian_filter of the whole volume, bit for
+    bit, at the volume's ends too."""
+    from scipy import ndimage as ndi
+
+    from skelmorph.volume import SmoothedVolume
+    rng = np.random.default_rng(1)
+    grey = rng.integers(0, 4000, (40, 21, 17)).astype(np.uint16)
+    whole = ndi.gaussian_filter(grey.astype(np.float32), 1.5 / np.asarray(spacing))
+    vol = SmoothedVolume(ArrayVolume(grey, spacing, "um"), 1.5)
+    for a, b in [(0, 5), (5, 17), (17, 40), (39, 40)]:
+        np.testing.assert_array_equal(vol.planes(a, b), whole[a:b])
+
+
+def test_smoothed_grey_scan_in_slabs_equals_in_memory(tmp_path):
+    """--smooth in slabs: the same mask (smoothing, then Otsu's threshold on
+    the streamed histogram) and the same graph as the analysis in memory."""
+    rng = np.random.default_rng(4)
+    ph = foam(size=128.0, cell=16.0, rod_radius=2.5, seed=4, spacing=(1.25, 1.0, 1.0))
+    grey = (np.where(ph.mask, 160.0, 70.0) + rng.normal(0, 25, ph.mask.shape))
+    path = tmp_path / "grey.tif"
+    write_tiff(path, np.clip(grey, 0, 255).astype(np.uint8), ph.spacing)
+    whole = sm.analyze(path, memory_limit="20GB", smooth=1.0, n_radii=0, tree=None)
+    slabs = sm.analyze(path, memory_limit=_planes_limit(ph.mask.shape, 90), smooth=1.0,
+                       n_radii=0, tree=None)
+    assert slabs.summary["n_chunks"] >= 2
+    for key in ("n_nodes", "n_branches", "cycle_rank", "total_length", "volume_fraction"):
+        assert slabs.summary[key] == pytest.approx(whole.summary[key], rel=1e-9), key
+    steps = [s["step"] for s in slabs.summary["preprocessing"]]
+    assert steps[0] == "gaussian smoothing"
+    # A binary scan is refused with --smooth, in slabs as in memory.
+    path = tmp_path / "binary.tif"
+    write_tiff(path, ph.mask.astype(np.uint8), ph.spacing)
+    for limit in ("20GB", _planes_limit(ph.mask.shape, 90)):
+        with pytest.raises(InputError, match="already binary"):
+            sm.analyze(path, memory_limit=limit, smooth=1.0, n_radii=0, tree=None)
+
+
+@pytest.mark.parametrize("speck,hole", [(27, 27), (5, 0), (0, 9), (40, 3)])
+def test_cleaned_planes_equal_the_whole_clean_up(speck, hole):
+    """Speck removal then hole filling read slab by slab (each read reaching
+    speck + hole planes further) equal the clean-ups of the whole mask
+    (scipy.ndimage.label components), on noise full of specks and holes."""
+    from skelmorph.chunked import CleanedVolume, Segmenter
+    from skelmorph.segment import fill_holes, remove_specks
+    rng = np.random.default_rng(speck + hole)
+    grey = rng.random((70, 24, 20)).astype(np.float32)
+    seg = Segmenter("threshold", 0.62)
+    whole = fill_holes(remove_specks(seg(grey), speck), hole)
+    assert not np.array_equal(whole, seg(grey))
+    vol = CleanedVolume(ArrayVolume(grey, (1.0, 1.0, 1.0), "um"), seg, speck, hole)
+    for a, b in [(0, 1), (0, 20), (20, 45), (33, 34), (45, 70), (0, 70)]:
+        np.testing.assert_array_equal(vol.planes(a, b).astype(bool), whole[a:b])
+
+
+def test_explicit_clean_ups_in_slabs(tmp_path):
+    """--min-object-size and --max-hole-size in slabs give the in-memory
+    mask; filling every hole is refused in one line (it has no reach)."""
+    rng = np.random.default_rng(8)
+    ph = foam(size=128.0, cell=16.0, rod_radius=2.5, seed=8)
+    noisy = ph.mask ^ (rng.random(ph.mask.shape) < 0.002)
+    path = tmp_path / "noisy.npy"
+    np.save(path, noisy.astype(np.uint8))
+    opts = dict(spacing=(1.0, 1.0, 1.0), min_object_size=4.0, max_hole_size=6.0, n_radii=0,
+                tree=None)
+    whole = sm.analyze(path, memory_limit="20GB", **opts)
+    slabs = sm.analyze(path, memory_limit=_planes_limit(ph.mask.shape, 90), **opts)
+    assert slabs.summary["n_chunks"] >= 2
+    for key in ("n_nodes", "n_branches", "cycle_rank", "total_length", "volume_fraction"):
+        assert slabs.summary[key] == pytest.approx(whole.summary[key], rel=1e-9), key
+    raw = sm.analyze(path, memory_limit="20GB", spacing=(1.0, 1.0, 1.0), n_radii=0, tree=None)
+    assert raw.summary["volume_fraction"] != whole.summary["volume_fraction"]
+    assert [s["step"] for s in slabs.summary["preprocessing"]][1:3] == ["speck removal",
+                                                                       "hole filling"]
+    with pytest.raises(InputError, match="holes can be filled only up to a size"):
+        sm.analyze(path, memory_limit=_planes_limit(ph.mask.shape, 90), spacing=(1.0, 1.0, 1.0),
+                   max_hole_size=float("inf"), n_radii=0, tree=None)
+
+
 def test_readers_return_the_same_planes(tmp_path):
     pytest.importorskip("zarr")
     rng = np.random.default_rng(1)
