@@ -64,6 +64,7 @@ __all__ = ["parse_memory", "memory_limit_bytes", "plan_slabs", "Segmenter", "sur
            "smoothed_volume", "cleaned_volume", "chunked_skeleton",
            "chunked_cavities", "chunked_branch_volumes", "chunked_graph",
            "chunked_bone_measures", "slab_volume", "check_slab_options", "LazyMask",
+           "SkeletonVolume",
            "SLAB_ALIGN", "BYTES_PER_VOXEL"]
 
 #: Slabs start on multiples of this many planes (twice the thinning's slab),
@@ -367,8 +368,11 @@ def _flat(coords_local, lo, shape):
     return (z * shape[1] + coords_local[:, 1]) * shape[2] + coords_local[:, 2]
 
 
-def slab_task(volume, seg, spacing, a, b, halo, memory_limit, workdir):
+def slab_task(volume, seg, spacing, a, b, halo, memory_limit, workdir, keep="curves"):
     """Centreline of one slab core; writes and returns the path of its ``.npz``.
+
+    ``keep`` is passed to :func:`skelmorph.thinning.thin` ("surfaces" keeps
+    mid-surfaces too, for the bone set).
 
     ``spacing`` is in units of the finest voxel side.  The halo grows (to a
     multiple of ``SLAB_ALIGN``) when the core holds structures too thick
@@ -378,7 +382,9 @@ def slab_task(volume, seg, spacing, a, b, halo, memory_limit, workdir):
     from .thinning import distance_map_sq, thin
 
     nz = volume.shape[0]
-    path = Path(workdir) / f"slab-{a:06d}-{_task_key(volume, seg, spacing, a, b, halo)}.npz"
+    key = _task_key(volume, seg, spacing, a, b, halo) if keep == "curves" else \
+        _task_key(volume, seg, spacing, a, b, halo) + "-" + keep
+    path = Path(workdir) / f"slab-{a:06d}-{key}.npz"
     if path.exists():
         try:
             with np.load(path) as z:
@@ -402,7 +408,7 @@ def slab_task(volume, seg, spacing, a, b, halo, memory_limit, workdir):
             return {"need": need}  # the caller plans thinner slabs
         halo = need
     n_fg = int(np.count_nonzero(mask[a - lo:b - lo]))
-    skel = thin(mask, spacing, dsq=dsq)
+    skel = thin(mask, spacing, dsq=dsq, keep=keep)
     del mask
     coords = np.argwhere(skel)
     z = coords[:, 0] + lo
@@ -436,16 +442,17 @@ def _seam_mismatches(results, slabs):
 
 
 def _run_slabs(volume, seg, spacing, slabs, halo, memory_limit, workdir, workers, scheduler,
-               progress):
+               progress, keep="curves"):
     """Run every slab task; their results by core start, and the halos asked
     for by slabs that did not fit."""
     from .engine import execute
 
     from .progress import Progress
 
-    tasks = [(volume, seg, tuple(spacing), a, b, halo, memory_limit, str(workdir))
+    tasks = [(volume, seg, tuple(spacing), a, b, halo, memory_limit, str(workdir), keep)
              for a, b in slabs]
-    bar = Progress(len(tasks), "slabs", enabled=bool(progress))
+    bar = Progress(len(tasks), "slabs" if keep == "curves" else "surface slabs",
+                   enabled=bool(progress))
     results, needs = {}, []
     for out in execute(slab_task, tasks, workers=workers, scheduler=scheduler,
                        name="skelmorph-slab"):
@@ -455,6 +462,7 @@ def _run_slabs(volume, seg, spacing, slabs, halo, memory_limit, workdir, workers
         with np.load(out) as z:
             r = {k: z[k] for k in z.files}
         r["shape"] = volume.shape
+        r["path"] = out
         results[int(r["a"])] = r
         bar.update(note=f"planes {int(r['a'])}-{int(r['b'])}")
     return results, needs
@@ -470,10 +478,33 @@ class ChunkedSkeleton:
     slabs: list  # [(a, b)] cores
     halo: int  # largest halo used, planes
     seam_warnings: list
+    files: list = field(default_factory=list)  # [(a, b, path)] slab files, by core
+
+
+class SkeletonVolume(Volume):
+    """The voxels a slab-wise thinning kept (1, else 0), read back from its
+    slab files plane range by plane range (so it travels to workers as paths)."""
+
+    kind = "slab files"
+
+    def __init__(self, shape, spacing, unit, files, source="thinned in slabs"):
+        super().__init__(shape, np.uint8, spacing, unit, source)
+        self.files = [(int(a), int(b), str(p)) for a, b, p in files]
+
+    def planes(self, start, stop):
+        plane = self.shape[1] * self.shape[2]
+        out = np.zeros((stop - start) * plane, np.uint8)
+        for a, b, path in self.files:
+            if a < stop and b > start:
+                with np.load(path) as z:
+                    flat = z["flat"]
+                i, j = np.searchsorted(flat, [start * plane, stop * plane])
+                out[flat[i:j] - start * plane] = 1
+        return out.reshape((stop - start,) + tuple(self.shape[1:]))
 
 
 def chunked_skeleton(volume, seg, spacing, *, memory_limit, workdir, halo=None, workers=1,
-                     scheduler=None, progress=False):
+                     scheduler=None, progress=False, keep="curves"):
     """Thin a volume slab by slab (see the module docstring).
 
     Parameters
@@ -491,6 +522,10 @@ def chunked_skeleton(volume, seg, spacing, *, memory_limit, workdir, halo=None, 
         Local processes, or a Dask scheduler address (see :mod:`skelmorph.engine`).
     progress : bool
         A progress bar over the slabs on stderr.
+    keep : {"curves", "surfaces"}
+        What the thinning keeps (:func:`skelmorph.thinning.thin`); surface
+        voxels are not gathered in ``coords`` (read them with
+        :class:`SkeletonVolume` from ``files``).
     """
     Path(workdir).mkdir(parents=True, exist_ok=True)
     halo = _align_up(halo or DEFAULT_HALO)
@@ -499,7 +534,7 @@ def chunked_skeleton(volume, seg, spacing, *, memory_limit, workdir, halo=None, 
         while True:  # plan; plan again with a deeper halo if a slab asks for one
             slabs = plan_slabs(volume.shape, memory_limit, halo)
             results, needs = _run_slabs(volume, seg, spacing, slabs, halo, memory_limit,
-                                        workdir, workers, scheduler, progress)
+                                        workdir, workers, scheduler, progress, keep)
             if not needs:
                 break
             halo = max(needs)
@@ -520,11 +555,15 @@ def chunked_skeleton(volume, seg, spacing, *, memory_limit, workdir, halo=None, 
                          for k in bad]
         break
     ordered = [results[a] for a, _ in slabs]
-    flat = np.concatenate([r["flat"] for r in ordered])
-    radii = np.sqrt(np.concatenate([r["dsq"] for r in ordered]).astype(np.float64))
-    coords = np.column_stack(np.unravel_index(flat, volume.shape)).astype(np.int64)
+    if keep == "curves":
+        flat = np.concatenate([r["flat"] for r in ordered])
+        radii = np.sqrt(np.concatenate([r["dsq"] for r in ordered]).astype(np.float64))
+        coords = np.column_stack(np.unravel_index(flat, volume.shape)).astype(np.int64)
+    else:  # surfaces are read back from the files (SkeletonVolume), not gathered
+        coords, radii = np.zeros((0, 3), np.int64), np.zeros(0)
     return ChunkedSkeleton(coords, radii, int(sum(int(r["n_fg"]) for r in ordered)), slabs,
-                           int(max(int(r["halo"]) for r in ordered)), seam_warnings)
+                           int(max(int(r["halo"]) for r in ordered)), seam_warnings,
+                           [(a, b, results[a]["path"]) for a, b in slabs])
 
 
 # ----------------------------------------------------------------------------- other passes
@@ -756,7 +795,7 @@ class LazyMask:
 
 
 def chunked_bone_measures(volume, seg, spacing, foreground, cavities, memory_limit, *,
-                          workers=1, scheduler=None, progress=False):
+                          workers=1, scheduler=None, progress=False, workdir=None):
     """The bone set of a scan read in slabs.
 
     BV/TV, BS/BV, BS/TV, SMI, the Euler characteristic and Conn.D
@@ -764,9 +803,11 @@ def chunked_bone_measures(volume, seg, spacing, foreground, cavities, memory_lim
     :mod:`skelmorph.measure.bone` on planes read on demand; DA from
     mean-intercept counts summed over slabs; Tb.Th and Tb.Sp (with SDs) from
     the local thickness in slabs with halos as deep as the largest sphere
-    needs (:mod:`skelmorph.slab_thickness`), and Tb.N from those.  All equal
-    the whole volume's (tested).  Direct Tb.N and the plates and rods need a
-    surface skeleton of the whole scan and are not computed.
+    needs (:mod:`skelmorph.slab_thickness`), and Tb.N from those; direct
+    Tb.N from a surface skeleton thinned in slabs (kept in ``workdir``, a
+    temporary folder by default) and the local thickness of its complement
+    in slabs.  All equal the whole volume's (tested).  The plates and rods
+    need components of the whole surface skeleton and are not computed.
 
     Returns
     -------
@@ -817,4 +858,32 @@ def chunked_bone_measures(volume, seg, spacing, foreground, cavities, memory_lim
                 "thickness_lattice_step": th_step, "separation_lattice_step": sp_step,
                 "thickness_halo": th_halo * float(spacing[0]),
                 "separation_halo": sp_halo * float(spacing[0])})
+    try:
+        out.update(_direct_tbn_in_slabs(volume, seg, spacing, memory_limit, workers, scheduler,
+                                        progress, workdir))
+    except InputError as exc:
+        out["skipped"] = (f"Tb.N.direct was not computed: {exc} (a larger --memory-limit "
+                          "allows it)")
     return out
+
+
+def _direct_tbn_in_slabs(volume, seg, spacing, memory_limit, workers, scheduler, progress,
+                         workdir):
+    """Tb.N.direct (Hildebrand et al. 1999, :func:`skelmorph.measure.bone.direct_trabecular_number`):
+    the surface skeleton thinned in slabs, then the mean local thickness of
+    the voxels off it, with it as the only walls, in slabs."""
+    import tempfile
+
+    from .slab_thickness import slab_local_thickness
+    scale = min(spacing)
+    unit_spacing = tuple(float(s) / scale for s in spacing)
+    with tempfile.TemporaryDirectory() as tmp:
+        folder = Path(workdir) / "surfaces" if workdir is not None else Path(tmp)
+        sk = chunked_skeleton(volume, seg, unit_spacing, memory_limit=memory_limit,
+                              workdir=folder, workers=workers, scheduler=scheduler,
+                              progress=progress, keep="surfaces")
+        skel = SkeletonVolume(volume.shape, volume.spacing, volume.unit, sk.files)
+        mean, _, _, halo = slab_local_thickness(skel, Segmenter("binary", 0.0), spacing, "space",
+                                                memory_limit, workers=workers,
+                                                scheduler=scheduler, progress=progress)
+    return {"Tb.N.direct": 1.0 / mean, "skeleton_gap_halo": halo * float(spacing[0])}

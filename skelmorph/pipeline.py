@@ -474,9 +474,10 @@ def _graph_in_slabs(volume, out, *, threshold, dark, label, prune, prune_factor,
         t0 = time.perf_counter()
         bone = chunked_bone_measures(volume, seg, volume.spacing, info["foreground"],
                                      info["cavities"](), limit, workers=workers,
-                                     scheduler=scheduler, progress=bar.enabled)
-        notes = ["Tb.N.direct and the plate and rod measures need a surface skeleton of the "
-                 "whole scan and were not computed in slabs"]
+                                     scheduler=scheduler, progress=bar.enabled,
+                                     workdir=work_folder(out, volume.source))
+        notes = ["the plate and rod measures need components of the whole surface skeleton "
+                 "and were not computed in slabs"]
         if "skipped" in bone:
             notes.append(bone.pop("skipped"))
             warnings.warn(notes[-1], SegmentationWarning, stacklevel=2)

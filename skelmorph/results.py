@@ -103,6 +103,8 @@ _LIST = [
        "scan analysed in slabs (deep enough for the largest sphere)"),
     _m("separation_halo", "length", "{u}", "halo of the slabs for the local separation of a "
        "scan analysed in slabs"),
+    _m("skeleton_gap_halo", "length", "{u}", "halo of the slabs for the distances between "
+       "mid-surfaces and mid-axes (Tb.N.direct) of a scan analysed in slabs"),
     # vessels
     _m("length_density", "density", "{u} {u}^-{d}", "centreline length per unit volume of the "
        "region (per unit area in 2D)"),
