@@ -87,7 +87,7 @@ def thickness_task(volume, seg, spacing, which, a, b, halo, step):
     lo, hi = _slab_extent(a, b, halo, nz)
     lo -= lo % step  # the coarse lattice of the whole volume
     phase, d = _phase_and_distance(volume, seg, spacing, which, lo, hi)
-    local, _ = bounded_local_thickness(phase, d, spacing, step=step)
+    local, _ = bounded_local_thickness(phase, d, spacing, step=step, reuse_dist=True)
     del d
     core = local[a - lo:b - lo][phase[a - lo:b - lo]].astype(np.float64)
     return float(core.sum()), float((core * core).sum()), int(core.size)

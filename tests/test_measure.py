@@ -121,6 +121,19 @@ def test_ridge_thickness_equals_brute_force(seed, spacing):
     np.testing.assert_array_equal(a, b)
 
 
+def test_thickness_written_into_the_distance_map():
+    """reuse_dist gives the same map, in the distance map's own buffer
+    (brute-force painting of every voxel as the reference)."""
+    rng = np.random.default_rng(11)
+    m = np.zeros((20, 22, 18), bool)
+    for _ in range(5):
+        m |= ball(m.shape, rng.uniform(0, 20, 3), rng.uniform(2, 6))
+    d = ndi.distance_transform_edt(m, sampling=(1.5, 1, 1)).astype(np.float32)
+    got = local_thickness(m, (1.5, 1, 1), dist=d, reuse_dist=True)
+    assert got is d
+    np.testing.assert_array_equal(got, local_thickness(m, (1.5, 1, 1), method="all"))
+
+
 @pytest.mark.parametrize("spacing", [(1.0, 1.0, 1.0), (1.0, 0.7, 1.3)])
 def test_ridge_thickness_with_a_short_containment_table(monkeypatch, spacing):
     """Balls larger than the containment table fall back to the geometric

@@ -391,7 +391,7 @@ def _local_thickness_in(phase, no_wall, spacing):
     np.sqrt(d, out=d)
     if no_wall is not phase:
         d[~phase] = 0
-    return bounded_local_thickness(phase, d, spacing)
+    return bounded_local_thickness(phase, d, spacing, reuse_dist=True)
 
 
 def direct_trabecular_number(skeleton, spacing, roi=None):
