@@ -121,6 +121,21 @@ def test_ridge_thickness_equals_brute_force(seed, spacing):
     np.testing.assert_array_equal(a, b)
 
 
+@pytest.mark.parametrize("spacing", [(1.0, 1.0), (1.5, 1.0)])
+def test_ridge_thickness_in_2d_equals_brute_force(spacing):
+    """2D discs crossing the image edge: the ridge painting (flat offsets
+    inside, clipped balls at the edge) gives the map painted from every
+    pixel (Hildebrand & Rüegsegger 1997 definition)."""
+    rng = np.random.default_rng(0)
+    yy, xx = np.mgrid[:60, :50]
+    m = np.zeros((60, 50), bool)
+    for _ in range(6):
+        c, r = rng.uniform(0, 50, 2), rng.uniform(3, 9)
+        m |= (yy - c[0]) ** 2 + (xx - c[1]) ** 2 < r * r
+    np.testing.assert_array_equal(local_thickness(m, spacing),
+                                  local_thickness(m, spacing, method="all"))
+
+
 def test_thickness_written_into_the_distance_map():
     """reuse_dist gives the same map, in the distance map's own buffer
     (brute-force painting of every voxel as the reference)."""

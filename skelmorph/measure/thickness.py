@@ -49,6 +49,27 @@ def _paint(out, centres, deltas, value):
 
 
 @numba.njit(parallel=True, cache=True, nogil=True)
+def _paint_clipped(out, centres, off, value, nz, ny, nx):
+    """As :func:`_paint` for balls that may cross the array's edge: offsets
+    ``off`` (m, 3) applied to (z, y, x) of each flat centre, outside voxels
+    skipped."""
+    plane = ny * nx
+    for i in numba.prange(len(centres)):
+        c = centres[i]
+        z = c // plane
+        y = (c - z * plane) // nx
+        x = c - z * plane - y * nx
+        for j in range(off.shape[0]):
+            zz = z + off[j, 0]
+            yy = y + off[j, 1]
+            xx = x + off[j, 2]
+            if 0 <= zz < nz and 0 <= yy < ny and 0 <= xx < nx:
+                k = (zz * ny + yy) * nx + xx
+                if out[k] == 0:
+                    out[k] = value
+
+
+@numba.njit(parallel=True, cache=True, nogil=True)
 def _ridge_flags(flat, plane_len, n_planes, deltas, steps, table_len, need, complete, keep):
     """keep[p] = 1 for voxels p > 0 of the padded volume (planes 1..n-2)
     whose painted ball is not inside a neighbour's painted ball.
@@ -218,12 +239,21 @@ def local_thickness(mask, spacing=None, method="ridge", dist=None, reuse_dist=Fa
     else:
         raise ValueError("method must be 'ridge' or 'all'")
     r_max = float(r.max())
-    pad = int(np.ceil(r_max / spacing.min())) + 1
-    padded_shape = tuple(s + 2 * pad for s in out_shape)
-    _repad(cflat, np.asarray(out_shape, np.int64), pad_from, pad)
+    _repad(cflat, np.asarray(out_shape, np.int64), pad_from, 0)
     off, off_len = _ball_offsets(r_max, spacing)
-    deltas = off @ c_strides(padded_shape)
-    out = np.zeros(int(np.prod(padded_shape)), np.float32)
+    shape3 = (1,) * (3 - len(out_shape)) + tuple(out_shape)
+    off3 = np.zeros((len(off), 3), np.int64)
+    off3[:, 3 - off.shape[1]:] = off
+    deltas = off3 @ c_strides(shape3)
+    # Painted in place of the distance map when it may be reused (its ridge
+    # is read), else into a new array; never into a padded copy.
+    if (reuse_dist and isinstance(dist, np.ndarray) and dist.dtype == np.float32
+            and dist.flags.c_contiguous and dist.shape == out_shape):
+        result = dist
+        result.fill(0)
+    else:
+        result = np.zeros(out_shape, np.float32)
+    out = result.reshape(-1)
     # Largest radius first; a voxel keeps the first value painted on it.  The
     # centres are gathered one radius group at a time: a sorted copy of them
     # would cost 8 bytes per centre, and the ridge can hold most voxels.
@@ -233,22 +263,26 @@ def local_thickness(mask, spacing=None, method="ridge", dist=None, reuse_dist=Fa
     bounds = np.flatnonzero(np.diff(r_sorted)) + 1
     starts = np.concatenate([[0], bounds])
     stops = np.concatenate([bounds, [len(r_sorted)]])
+    plane = shape3[1] * shape3[2]
     for a, b in zip(starts, stops):
         radius = r_sorted[a]
         m = int(np.searchsorted(off_len, radius, side="left"))  # offsets with |o| < radius
         if m == 0:
             continue
-        _paint(out, cflat[order[a:b]], deltas[:m], np.float32(2 * radius))
+        centres = cflat[order[a:b]]
+        # Balls inside the array are painted by flat offsets, the others clipped.
+        reach = np.abs(off3[:m]).max(axis=0)
+        z = centres // plane
+        y = (centres - z * plane) // shape3[2]
+        x = centres - z * plane - y * shape3[2]
+        inside = ((z >= reach[0]) & (z < shape3[0] - reach[0]) & (y >= reach[1])
+                  & (y < shape3[1] - reach[1]) & (x >= reach[2]) & (x < shape3[2] - reach[2]))
+        del z, y, x
+        value = np.float32(2 * radius)
+        _paint(out, centres[inside], deltas[:m], value)
+        if not inside.all():
+            _paint_clipped(out, centres[~inside], off3[:m], value, *shape3)
     del order, cflat
-    core = out.reshape(padded_shape)[tuple(slice(pad, pad + s) for s in out_shape)]
-    reuse = (reuse_dist and isinstance(dist, np.ndarray) and dist.dtype == np.float32
-             and dist.flags.c_contiguous and dist.shape == out_shape)
-    if reuse:
-        np.copyto(dist, core)
-        result = dist
-    else:
-        result = np.ascontiguousarray(core)
-    del core, out
     np.multiply(result, mask, out=result)  # 0 outside the phase, without a negated copy
     return result
 
