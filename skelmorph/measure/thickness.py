@@ -70,9 +70,9 @@ def _paint_clipped(out, centres, off, value, nz, ny, nx):
 
 
 @numba.njit(parallel=True, cache=True, nogil=True)
-def _ridge_flags(flat, plane_len, n_planes, deltas, steps, table_len, need, complete, keep):
-    """keep[p] = 1 for voxels p > 0 of the padded volume (planes 1..n-2)
-    whose painted ball is not inside a neighbour's painted ball.
+def _ridge_flags(flat, nz, ny, nx, offs, deltas, steps, table_len, need, complete, keep):
+    """keep[p] = 1 for voxels p with r(p) > 0 whose painted ball is not
+    inside a neighbour's painted ball (neighbours outside the array have none).
 
     The ball of p paints the offsets o with |o| < r(p): the first m of
     ``table_len`` (offset lengths, ascending).  ``need[m - 1, j]`` is the
@@ -80,50 +80,33 @@ def _ridge_flags(flat, plane_len, n_planes, deltas, steps, table_len, need, comp
     when r(n) > need[m - 1, j].  Radii beyond the table (when it is not
     ``complete``) use the geometric bound |o - delta| < r + |delta|."""
     n_table = len(table_len)
-    for z in numba.prange(1, n_planes - 1):
-        for p in range(z * plane_len, (z + 1) * plane_len):
-            r = flat[p]
-            if r <= 0:
-                continue
-            m = np.searchsorted(table_len, r)  # offsets with |o| < r
-            in_table = m < n_table or complete
-            ok = 1
-            for j in range(len(deltas)):
-                rn = flat[p + deltas[j]]
-                if rn < r:
+    for z in numba.prange(nz):
+        for y in range(ny):
+            for x in range(nx):
+                p = (z * ny + y) * nx + x
+                r = flat[p]
+                if r <= 0:
                     continue
-                if in_table:
-                    if rn > need[m - 1, j] * (1.0 + 1e-12):
+                m = np.searchsorted(table_len, r)  # offsets with |o| < r
+                in_table = m < n_table or complete
+                edge = z == 0 or z == nz - 1 or y == 0 or y == ny - 1 or x == 0 or x == nx - 1
+                ok = 1
+                for j in range(len(deltas)):
+                    if edge:
+                        zz, yy, xx = z + offs[j, 0], y + offs[j, 1], x + offs[j, 2]
+                        if not (0 <= zz < nz and 0 <= yy < ny and 0 <= xx < nx):
+                            continue
+                    rn = flat[p + deltas[j]]
+                    if rn < r:
+                        continue
+                    if in_table:
+                        if rn > need[m - 1, j] * (1.0 + 1e-12):
+                            ok = 0
+                            break
+                    elif rn >= r + steps[j]:
                         ok = 0
                         break
-                elif rn >= r + steps[j]:
-                    ok = 0
-                    break
-            keep[p] = ok
-
-
-@numba.njit(cache=True)
-def _repad(flat, shape, pad_from, pad_to):
-    """Flat indices into ``shape`` padded by ``pad_from`` on every side,
-    rewritten in place as indices into ``shape`` padded by ``pad_to``."""
-    nd = len(shape)
-    src = np.empty(nd, np.int64)
-    dst = np.empty(nd, np.int64)
-    s_src = 1
-    s_dst = 1
-    for a in range(nd - 1, -1, -1):
-        src[a] = s_src
-        dst[a] = s_dst
-        s_src *= shape[a] + 2 * pad_from
-        s_dst *= shape[a] + 2 * pad_to
-    for i in range(len(flat)):
-        q = flat[i]
-        out = 0
-        for a in range(nd):
-            digit = q // src[a]
-            q -= digit * src[a]
-            out += (digit - pad_from + pad_to) * dst[a]
-        flat[i] = out
+                keep[p] = ok
 
 
 #: Offsets in the containment table of the ridge test (26 float64 each);
@@ -145,8 +128,9 @@ def _containment_table(r_max, spacing, offs):
 
 
 def _ridge_points(dist, spacing):
-    """Ridge voxels as flat indices into ``dist`` padded by one voxel, and
-    their radii: one compiled pass, 1 byte of flags per voxel.
+    """Ridge voxels as flat indices into ``dist``, and their radii: one
+    compiled pass, 1 byte of flags per voxel (no padded copy: voxels on the
+    array's faces check their neighbours' bounds).
 
     A voxel is dropped when the voxel set its ball paints lies inside the
     set a neighbour's ball of at least its radius paints: every voxel it
@@ -155,19 +139,20 @@ def _ridge_points(dist, spacing):
     geometric test r(n) >= r(c) + |n - c| dropped 10 %.
     """
     spacing = np.asarray(spacing, float)
-    pad = np.pad(np.asarray(dist, np.float32), 1)
-    strides = c_strides(pad.shape)
-    offs = neighbour_offsets(dist.ndim)
-    deltas = (offs @ strides).astype(np.int64)
+    d = np.asarray(dist, np.float32)
+    shape3 = (1,) * (3 - d.ndim) + d.shape
+    offs = neighbour_offsets(d.ndim)
+    offs3 = np.zeros((len(offs), 3), np.int64)
+    offs3[:, 3 - d.ndim:] = offs
+    deltas = (offs3 @ c_strides(shape3)).astype(np.int64)
     steps = np.linalg.norm(offs * spacing, axis=1)
-    table_len, need, complete = _containment_table(float(pad.max(initial=0.0)), spacing, offs)
-    keep = np.zeros(pad.size, np.uint8)
-    plane = int(np.prod(pad.shape[1:]))
-    _ridge_flags(pad.ravel(), plane, pad.shape[0], deltas, steps, table_len, need, complete,
-                 keep)
+    table_len, need, complete = _containment_table(float(d.max(initial=0.0)), spacing, offs)
+    keep = np.zeros(d.size, np.uint8)
+    flat = np.ascontiguousarray(d).reshape(-1)
+    _ridge_flags(flat, *shape3, offs3, deltas, steps, table_len, need, complete, keep)
     points = np.flatnonzero(keep)
     del keep
-    return points, pad.ravel()[points]
+    return points, flat[points]
 
 
 def ridge_centres(dist, spacing):
@@ -179,7 +164,6 @@ def ridge_centres(dist, spacing):
     Returns flat indices into ``dist``.
     """
     points, _ = _ridge_points(dist, spacing)
-    _repad(points, np.asarray(dist.shape, np.int64), 1, 0)
     return points
 
 
@@ -231,15 +215,12 @@ def local_thickness(mask, spacing=None, method="ridge", dist=None, reuse_dist=Fa
     # arrays (the ridge can hold a quarter of the voxels of thin rods).
     if method == "ridge":
         cflat, r = _ridge_points(dist, spacing)
-        pad_from = 1
     elif method == "all":
         cflat = np.flatnonzero(mask.ravel())
         r = np.asarray(dist, np.float32).ravel()[cflat]
-        pad_from = 0
     else:
         raise ValueError("method must be 'ridge' or 'all'")
     r_max = float(r.max())
-    _repad(cflat, np.asarray(out_shape, np.int64), pad_from, 0)
     off, off_len = _ball_offsets(r_max, spacing)
     shape3 = (1,) * (3 - len(out_shape)) + tuple(out_shape)
     off3 = np.zeros((len(off), 3), np.int64)
