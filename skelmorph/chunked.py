@@ -250,8 +250,9 @@ def cleaned_volume(volume, seg, spacing, min_object_size=None, max_hole_size=Non
     cleans in memory (grey input: specks and holes of at most 3^3 voxels by
     default; binary input and labels: none), and the steps for the record.
 
-    Returns ``(volume, seg, steps)``; the volume unchanged when there is
-    nothing to clean.
+    Returns ``(volume, seg)``: the cleaned volume and the segmenter of its
+    0/1 planes (with the steps for the record), or both unchanged when
+    there is nothing to clean.
     """
     from .segment import _DEFAULT_CLEAN_VOXELS, _voxel_count
     default = 0 if seg.mode in ("binary", "label") else _DEFAULT_CLEAN_VOXELS[3]
@@ -265,7 +266,7 @@ def cleaned_volume(volume, seg, spacing, min_object_size=None, max_hole_size=Non
                          f"planes together; --min-object-size and --max-hole-size ask for "
                          f"{speck + hole} voxels")
     if not speck and not hole:
-        return volume, seg, []
+        return volume, seg
     voxel = float(np.prod(spacing))
     steps = []
     if speck:
@@ -273,7 +274,7 @@ def cleaned_volume(volume, seg, spacing, min_object_size=None, max_hole_size=Non
     if hole:
         steps.append({"step": "hole filling", "max_size": float(hole * voxel)})
     cleaned = CleanedVolume(volume, seg, speck, hole)
-    return cleaned, Segmenter("binary", 0.0, False, list(seg.steps) + steps), steps
+    return cleaned, Segmenter("binary", 0.0, False, list(seg.steps) + steps)
 
 
 def _histogram_otsu(counts, centres):

@@ -438,7 +438,7 @@ def _graph_in_slabs(volume, out, *, threshold, dark, label, prune, prune_factor,
     if smooth:
         seg.steps.insert(0, {"step": "gaussian smoothing", "sigma": volume.sigma})
     # Specks and small holes, as in memory; every slab is read through them.
-    volume, seg, _ = cleaned_volume(volume, seg, volume.spacing, min_object_size, max_hole_size)
+    volume, seg = cleaned_volume(volume, seg, volume.spacing, min_object_size, max_hole_size)
     timings["read"] = time.perf_counter() - t0
     bar.update(note="surveyed")
     limit = memory_limit  # bytes, decided by analyze()

@@ -230,6 +230,9 @@ def test_explicit_clean_ups_in_slabs(tmp_path):
     with pytest.raises(InputError, match="holes can be filled only up to a size"):
         sm.analyze(path, memory_limit=_planes_limit(ph.mask.shape, 90), spacing=(1.0, 1.0, 1.0),
                    max_hole_size=float("inf"), n_radii=0, tree=None)
+    with pytest.raises(InputError, match="can reach at most"):
+        sm.analyze(path, memory_limit=_planes_limit(ph.mask.shape, 90), spacing=(1.0, 1.0, 1.0),
+                   min_object_size=1000.0, n_radii=0, tree=None)
 
 
 def test_readers_return_the_same_planes(tmp_path):
