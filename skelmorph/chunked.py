@@ -179,13 +179,16 @@ class Segmenter:
         return [self.mode, float(self.value), bool(self.dark)]
 
 
-def smoothed_volume(volume, sigma, slab_planes=32):
+def smoothed_volume(volume, sigma, slab_planes=32, label=None):
     """``volume`` through a Gaussian of ``sigma`` (physical units), for grey
     scans analysed in slabs (:class:`skelmorph.volume.SmoothedVolume`).
 
-    As in memory, a binary image is refused: planes are read until one
-    holds a third value (at once for a grey scan)."""
+    As in memory, a binary image (or a label, which is one) is refused:
+    planes are read until one holds a third value (at once for a grey scan)."""
+    from .segment import ALREADY_BINARY
     from .volume import SmoothedVolume
+    if label is not None:
+        raise InputError(ALREADY_BINARY)
     try:
         sigma = float(sigma)
     except (TypeError, ValueError):
@@ -201,8 +204,7 @@ def smoothed_volume(volume, sigma, slab_planes=32):
                 break
         if len(values) > 2:
             return SmoothedVolume(volume, sigma)
-    raise InputError("the image is already binary: --smooth, --enhance and --hysteresis "
-                     "apply to grey images only")
+    raise InputError(ALREADY_BINARY)
 
 
 #: Deepest reach (planes on each side) of the clean-ups in slabs.

@@ -429,11 +429,8 @@ def _graph_in_slabs(volume, out, *, threshold, dark, label, prune, prune_factor,
     """Survey, thin in slabs and build the graph of a scan too large for memory."""
     from .chunked import chunked_graph, cleaned_volume, smoothed_volume, survey, work_folder
     t0 = time.perf_counter()
-    if smooth:
-        if label is not None:  # a label is binary, as in memory
-            raise InputError("the image is already binary: --smooth, --enhance and "
-                             "--hysteresis apply to grey images only")
-        volume = smoothed_volume(volume, smooth)  # every slab is read through the filter
+    if smooth:  # every slab is read through the filter
+        volume = smoothed_volume(volume, smooth, label=label)
     seg = survey(volume, threshold=threshold, dark=dark, label=label, progress=bar.enabled)
     if smooth:
         seg.steps.insert(0, {"step": "gaussian smoothing", "sigma": volume.sigma})

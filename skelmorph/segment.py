@@ -16,6 +16,10 @@ from .io import check_image_array, validate_spacing
 __all__ = ["is_binary", "as_bool_mask", "to_mask", "segment_image", "enhance_vessels",
            "check_mask", "remove_specks", "fill_holes", "count_cavities"]
 
+#: Said when a filter for grey images is asked of a binary one.
+ALREADY_BINARY = ("the image is already binary: --smooth, --enhance and --hysteresis apply to "
+                  "grey images only")
+
 # Default cleaning for grey input, in voxels: a speck or hole of at most 3**ndim
 # voxels (one 3x3(x3) block) is noise at any sensible resolution.
 _DEFAULT_CLEAN_VOXELS = {2: 9, 3: 27}
@@ -265,8 +269,7 @@ def segment_image(image, spacing=None, *, threshold=None, dark=False, smooth=Non
                              "like a label map; say which label to keep (--label N) or give "
                              "--threshold")
     if binary and (smooth or enhance or hysteresis is not None):
-        raise InputError("the image is already binary: --smooth, --enhance and --hysteresis "
-                         "apply to grey images only")
+        raise InputError(ALREADY_BINARY)
     if binary:
         mask = as_bool_mask(image)
         mask = ~mask if dark else mask.copy()
