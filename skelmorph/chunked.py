@@ -151,6 +151,35 @@ def plan_slabs(shape, memory_limit, halo, bytes_per_voxel=None):
     return [(a, min(a + core, nz)) for a in range(0, nz, core)]
 
 
+def fitting_workers(shape, memory_limit, halo, workers, scheduler=None, bytes_per_voxel=None):
+    """How many slabs run at once here, and the memory each may use.
+
+    Local workers share ``memory_limit``: the most of them (at most
+    ``workers``) whose share still holds a slab with ``halo``.  Tasks on a
+    Dask cluster run on other machines and each has the whole limit.
+
+    Returns
+    -------
+    workers : int
+    task_limit : float, bytes
+
+    Raises
+    ------
+    InputError
+        When not even one slab with its halo fits in the limit.
+    """
+    if scheduler is not None:
+        return 1, float(memory_limit)
+    for n in range(max(1, int(workers)), 1, -1):
+        try:
+            plan_slabs(shape, memory_limit / n, halo, bytes_per_voxel)
+        except InputError:
+            continue
+        return n, memory_limit / n
+    plan_slabs(shape, memory_limit, halo, bytes_per_voxel)  # raises when nothing fits
+    return 1, float(memory_limit)
+
+
 # ----------------------------------------------------------------------------- segmentation
 
 @dataclass
@@ -517,6 +546,7 @@ def chunked_skeleton(volume, seg, spacing, *, memory_limit, workdir, halo=None, 
     spacing : tuple of float
         Voxel size in units of the finest voxel side.
     memory_limit : int, bytes
+        Shared by the local workers (see :func:`fitting_workers`).
     workdir : path
         Folder for the slab files (kept for resuming).
     halo : int, optional
@@ -535,9 +565,11 @@ def chunked_skeleton(volume, seg, spacing, *, memory_limit, workdir, halo=None, 
     seam_warnings = []
     for attempt in range(3):
         while True:  # plan; plan again with a deeper halo if a slab asks for one
-            slabs = plan_slabs(volume.shape, memory_limit, halo)
-            results, needs = _run_slabs(volume, seg, spacing, slabs, halo, memory_limit,
-                                        workdir, workers, scheduler, progress, keep)
+            n_run, task_limit = fitting_workers(volume.shape, memory_limit, halo, workers,
+                                                scheduler)
+            slabs = plan_slabs(volume.shape, task_limit, halo)
+            results, needs = _run_slabs(volume, seg, spacing, slabs, halo, task_limit,
+                                        workdir, n_run, scheduler, progress, keep)
             if not needs:
                 break
             halo = max(needs)
@@ -547,7 +579,7 @@ def chunked_skeleton(volume, seg, spacing, *, memory_limit, workdir, halo=None, 
         deeper = 2 * max(int(r["halo"]) for r in results.values())
         try:
             if attempt < 2:
-                plan_slabs(volume.shape, memory_limit, deeper)
+                fitting_workers(volume.shape, memory_limit, deeper, workers, scheduler)
                 halo = deeper
                 continue
         except InputError:
@@ -798,7 +830,7 @@ class LazyMask:
 
 
 def chunked_bone_measures(volume, seg, spacing, foreground, cavities, memory_limit, *,
-                          workers=1, scheduler=None, progress=False, workdir=None):
+                          workers=1, scheduler=None, progress=False, workdir=None, timings=None):
     """The bone set of a scan read in slabs.
 
     BV/TV, BS/BV, BS/TV, SMI, the Euler characteristic and Conn.D
@@ -812,10 +844,15 @@ def chunked_bone_measures(volume, seg, spacing, foreground, cavities, memory_lim
     in slabs.  All equal the whole volume's (tested).  The plates and rods
     need components of the whole surface skeleton and are not computed.
 
+    ``timings``, a dict, gets the seconds of each part ("bone surface",
+    "bone euler", "bone intercepts", "bone Tb.Th", "bone Tb.Sp", "bone Tb.N.direct").
+
     Returns
     -------
     dict
     """
+    import time
+
     from .measure.bone import euler_in_region, mil_counts, mil_fit, surface_and_smi
     from .progress import Progress
     from .slab_thickness import slab_local_thickness
@@ -824,9 +861,19 @@ def chunked_bone_measures(volume, seg, spacing, foreground, cavities, memory_lim
     voxel = float(np.prod(spacing))
     tv, bv = lazy.size * voxel, foreground * voxel
     slab_voxels = max(2**22, int(memory_limit // 64))  # marching cubes: ~60 bytes/voxel
+    timings = {} if timings is None else timings
+    clock = [time.perf_counter()]
+
+    def lap(name):
+        now = time.perf_counter()
+        timings[f"bone {name}"] = now - clock[0]
+        clock[0] = now
+
     bs, smi = surface_and_smi(lazy, spacing, bv, slab_voxels=slab_voxels)
+    lap("surface")
     chi = int(round(euler_in_region(lazy, slab_voxels=slab_voxels)))
     dchi = euler_in_region(lazy, True, slab_voxels=slab_voxels)
+    lap("euler")
     # Mean intercepts: pairs counted by the plane of their first voxel.
     nz = lazy.shape[0]
     planes = max(1, slab_voxels // (lazy.shape[1] * lazy.shape[2]))
@@ -841,6 +888,7 @@ def chunked_bone_measures(volume, seg, spacing, foreground, cavities, memory_lim
             t[1] += p
         bar.update()
     da, axes = mil_fit(total, spacing)
+    lap("intercepts")
     out = {"BV/TV": bv / tv, "BS/BV": bs / bv, "Conn.D": (cavities - dchi) / tv + 0.0,
            "SMI": smi, "DA": da, "TV": tv, "BV": bv, "BS": bs, "BS/TV": bs / tv,
            "euler_characteristic": chi, "euler_edge_corrected": dchi, "cavities": cavities,
@@ -849,9 +897,11 @@ def chunked_bone_measures(volume, seg, spacing, foreground, cavities, memory_lim
         th, th_sd, th_step, th_halo = slab_local_thickness(
             volume, seg, spacing, "solid", memory_limit, workers=workers, scheduler=scheduler,
             progress=progress)
+        lap("Tb.Th")
         sp, sp_sd, sp_step, sp_halo = slab_local_thickness(
             volume, seg, spacing, "space", memory_limit, workers=workers, scheduler=scheduler,
             progress=progress)
+        lap("Tb.Sp")
     except InputError as exc:  # the limit is too small for the spheres' halo
         out["skipped"] = (f"Tb.Th, Tb.Sp and Tb.N were not computed: {exc} (a larger "
                           "--memory-limit allows them)")
@@ -864,6 +914,7 @@ def chunked_bone_measures(volume, seg, spacing, foreground, cavities, memory_lim
     try:
         out.update(_direct_tbn_in_slabs(volume, seg, spacing, memory_limit, workers, scheduler,
                                         progress, workdir))
+        lap("Tb.N.direct")
     except InputError as exc:
         out["skipped"] = (f"Tb.N.direct was not computed: {exc} (a larger --memory-limit "
                           "allows it)")

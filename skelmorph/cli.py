@@ -51,8 +51,9 @@ def _parser():
     from .options import add_analyze_arguments
     add_analyze_arguments(a)
     big = a._action_groups[-1]  # 'large scans', from the options list
-    big.add_argument("--workers", type=int, default=1,
-                     help="slabs of a large scan: local worker processes (default 1)")
+    big.add_argument("--workers", type=int, default=None,
+                     help="slabs of a large scan: local worker processes sharing the memory "
+                          "limit (default one per core)")
     big.add_argument("--scheduler", default=None, metavar="ADDRESS",
                      help="slabs of a large scan on a Dask cluster, e.g. tcp://host:8786 "
                           "(shared file system)")
@@ -121,7 +122,7 @@ def _cmd_analyze(args):
     from .pipeline import analyze
 
     out = Path(args.out) if args.out else Path(str(Path(args.image).with_suffix("")) + "-skelmorph")
-    if args.workers < 1:
+    if args.workers is not None and args.workers < 1:
         raise SkelmorphError("--workers must be at least 1")
     result = analyze(args.image, spacing=args.spacing, unit=args.unit, out=out,
                      workers=args.workers, scheduler=args.scheduler,

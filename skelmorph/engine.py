@@ -8,10 +8,30 @@ results as tasks finish, whichever engine runs them.
 from __future__ import annotations
 
 import contextlib
+import os
 import signal
 import uuid
 
-__all__ = ["execute"]
+__all__ = ["execute", "usable_cores", "local_workers"]
+
+
+def usable_cores():
+    """Cores this process may run on (its CPU affinity where the platform tells)."""
+    try:
+        return len(os.sched_getaffinity(0))
+    except AttributeError:  # not on every platform
+        return os.cpu_count() or 1
+
+
+def local_workers(workers=None):
+    """Local processes for independent tasks: ``workers``, or by default one
+    per usable core; 1 inside a worker process (no pools within pools)."""
+    import multiprocessing
+    if workers is None:
+        if multiprocessing.parent_process() is not None:
+            return 1
+        return usable_cores()
+    return max(1, int(workers))
 
 
 def _die_with_parent():

@@ -140,7 +140,7 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
             thinning="ordered", root="thickest", tree="shortest", n_trees=1, filtration="radial", seed=0,
             root_point=None, root_face=None, n_radii=200, paths=None, measures=None,
             thickness_map=False, major_vein_width=None, work_limit=900.0, max_paths=None,
-            out=None, figures=True, memory_limit=None, workers=1, scheduler=None, progress=False):
+            out=None, figures=True, memory_limit=None, workers=None, scheduler=None, progress=False):
     """Analyse one image end to end.
 
     Parameters
@@ -204,11 +204,14 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
         A 3D scan read from a file whose analysis would need more memory
         than this (``"8GB"``, ``"500MB"``, bytes; default half the memory
         available) is analysed in slabs read on demand
-        (:mod:`skelmorph.chunked`), with the same graph.  Field measure sets,
-        ROIs, filters and clean-ups are not available in slabs yet.
+        (:mod:`skelmorph.chunked`), with the same graph.  The bone set,
+        smoothing and the clean-ups work in slabs; ROIs, vessel enhancement,
+        hysteresis and the other measure sets need the scan in memory.
     workers, scheduler
-        Slabs run in ``workers`` local processes, or on a Dask cluster at
-        ``scheduler`` (``tcp://host:port``).
+        Slabs run in ``workers`` local processes (default one per core; they
+        share ``memory_limit``, and fewer run when a slab's halo needs a
+        larger share), or on a Dask cluster at ``scheduler``
+        (``tcp://host:port``), each task with the whole limit.
     progress : bool
         Show a progress bar over the stages on stderr.
 
@@ -428,6 +431,8 @@ def _graph_in_slabs(volume, out, *, threshold, dark, label, prune, prune_factor,
                     min_object_size=None, max_hole_size=None):
     """Survey, thin in slabs and build the graph of a scan too large for memory."""
     from .chunked import chunked_graph, cleaned_volume, smoothed_volume, survey, work_folder
+    from .engine import local_workers
+    workers = local_workers(workers)
     t0 = time.perf_counter()
     if smooth:  # every slab is read through the filter
         volume = smoothed_volume(volume, smooth, label=label)
@@ -452,6 +457,7 @@ def _graph_in_slabs(volume, out, *, threshold, dark, label, prune, prune_factor,
     steps[-1] = dict(steps[-1], foreground_fraction=info["foreground"] / n)
     steps.append({"step": "analysed in slabs", "slabs": info["n_chunks"],
                   "halo_planes": info["halo"], "memory_limit_bytes": limit,
+                  "local_workers": workers if scheduler is None else 0,
                   "read_as": volume.kind})
     summary.update(
         image_shape=list(volume.shape),
@@ -472,7 +478,7 @@ def _graph_in_slabs(volume, out, *, threshold, dark, label, prune, prune_factor,
         bone = chunked_bone_measures(volume, seg, volume.spacing, info["foreground"],
                                      info["cavities"](), limit, workers=workers,
                                      scheduler=scheduler, progress=bar.enabled,
-                                     workdir=work_folder(out, volume.source))
+                                     workdir=work_folder(out, volume.source), timings=timings)
         notes = ["the plate and rod measures need components of the whole surface skeleton "
                  "and were not computed in slabs"]
         if "skipped" in bone:

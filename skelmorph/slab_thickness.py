@@ -31,7 +31,7 @@ import math
 
 import numpy as np
 
-from .chunked import SLAB_ALIGN, _align_up, _slab_extent, plan_slabs
+from .chunked import SLAB_ALIGN, _align_up, _slab_extent, fitting_workers, plan_slabs
 from .errors import InputError
 
 __all__ = ["slab_local_thickness", "THICKNESS_BYTES_PER_VOXEL"]
@@ -104,6 +104,7 @@ def slab_local_thickness(volume, seg, spacing, which, memory_limit, *, workers=1
     spacing : sequence of 3 float, physical voxel size
     which : {"solid", "space"}
     memory_limit : int, bytes
+        Shared by the local workers (:func:`skelmorph.chunked.fitting_workers`).
     workers, scheduler : as in :func:`skelmorph.engine.execute`
     progress : bool
 
@@ -121,12 +122,14 @@ def slab_local_thickness(volume, seg, spacing, which, memory_limit, *, workers=1
     sp = tuple(float(s) for s in spacing)
     halo = SLAB_ALIGN * 2
     while True:  # pass 1: halos and the largest radius
-        slabs = plan_slabs(volume.shape, memory_limit, halo,
+        n_run, task_limit = fitting_workers(volume.shape, memory_limit, halo, workers,
+                                            scheduler, THICKNESS_BYTES_PER_VOXEL)
+        slabs = plan_slabs(volume.shape, task_limit, halo,
                            bytes_per_voxel=THICKNESS_BYTES_PER_VOXEL)
         bar = Progress(len(slabs), f"{which} radii", enabled=bool(progress))
-        tasks = [(volume, seg, sp, which, a, b, halo, memory_limit) for a, b in slabs]
+        tasks = [(volume, seg, sp, which, a, b, halo, task_limit) for a, b in slabs]
         found, needs = {}, []
-        for out in execute(radius_task, tasks, workers=workers, scheduler=scheduler,
+        for out in execute(radius_task, tasks, workers=n_run, scheduler=scheduler,
                            name=f"skelmorph-{which}-radius"):
             bar.update()
             if "need" in out:
@@ -142,7 +145,7 @@ def slab_local_thickness(volume, seg, spacing, which, memory_limit, *, workers=1
     bar = Progress(len(slabs), f"{which} thickness", enabled=bool(progress))
     total = total_sq = 0.0
     count = 0
-    for s, s2, n in execute(thickness_task, tasks, workers=workers, scheduler=scheduler,
+    for s, s2, n in execute(thickness_task, tasks, workers=n_run, scheduler=scheduler,
                             name=f"skelmorph-{which}-thickness"):
         total, total_sq, count = total + s, total_sq + s2, count + n
         bar.update()

@@ -136,6 +136,34 @@ def test_analyze_file_in_slabs_equals_in_memory(tmp_path):
     assert [f.stat().st_mtime_ns for f in files] == stamps
 
 
+def test_local_workers_share_the_memory_limit(tmp_path):
+    """Two local workers split the limit (twice the slabs) and give the same graph."""
+    ph = foam(size=128.0, cell=16.0, rod_radius=2.5, seed=2)
+    path = tmp_path / "scan.npy"
+    np.save(path, np.concatenate([ph.mask, ph.mask[::-1]]).astype(np.uint8))  # 256 planes
+    limit = _planes_limit(ph.mask.shape, 192)  # one worker: cores of 128 planes, two: 32
+    one = sm.analyze(path, memory_limit=limit, n_radii=0, tree=None, workers=1,
+                     out=tmp_path / "one")
+    two = sm.analyze(path, memory_limit=limit, n_radii=0, tree=None, workers=2,
+                     out=tmp_path / "two")
+    assert two.summary["n_chunks"] > one.summary["n_chunks"] >= 2
+    for key in ("n_nodes", "n_branches", "cycle_rank", "total_length", "mean_radius"):
+        assert two.summary[key] == pytest.approx(one.summary[key], rel=1e-12), key
+    step = [s for s in two.summary["preprocessing"] if s["step"] == "analysed in slabs"][0]
+    assert step["local_workers"] == 2
+
+
+def test_fitting_workers_fall_back_to_fewer_for_deep_halos():
+    shape = (512, 100, 100)
+    limit = _planes_limit(shape, 160)
+    assert chunked.fitting_workers(shape, limit, 32, 2) == (2, limit / 2)
+    # 80 planes each cannot hold 16 + 2 x 48: one worker with the whole limit
+    assert chunked.fitting_workers(shape, limit, 48, 2) == (1, limit)
+    assert chunked.fitting_workers(shape, limit, 48, 2, scheduler="tcp://x:1") == (1, limit)
+    with pytest.raises(InputError, match="per slab"):
+        chunked.fitting_workers(shape, limit, 80, 2)
+
+
 def test_grey_scan_in_slabs_uses_a_streamed_otsu_threshold(tmp_path):
     """Otsu from the streamed histogram equals scikit-image's on the whole
     volume (same 8-bit bins)."""

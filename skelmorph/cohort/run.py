@@ -35,6 +35,7 @@ from pathlib import Path
 import numpy as np
 
 from .._version import __version__
+from ..engine import usable_cores
 from ..errors import SkelmorphError
 from ..io import atomic_path, safe_cell, write_csv, write_json
 from ..options import validate_options
@@ -287,10 +288,7 @@ def _cap_workers(workers, scheduler):
     workers = int(workers)
     if workers < 1:
         raise SkelmorphError("--workers must be at least 1")
-    try:
-        cores = len(os.sched_getaffinity(0))
-    except AttributeError:  # not on every platform
-        cores = os.cpu_count() or 1
+    cores = usable_cores()
     if scheduler is None and workers > cores:
         warnings.warn(f"--workers {workers} is more than the {cores} cores available; "
                       f"using {cores}", stacklevel=3)
