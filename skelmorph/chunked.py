@@ -151,12 +151,18 @@ def plan_slabs(shape, memory_limit, halo, bytes_per_voxel=None):
     return [(a, min(a + core, nz)) for a in range(0, nz, core)]
 
 
+#: Local workers are added only when they cut the planes read per worker
+#: by this factor (their slabs are thinner, so their halos are more of the work).
+PARALLEL_GAIN = 1.3
+
+
 def fitting_workers(shape, memory_limit, halo, workers, scheduler=None, bytes_per_voxel=None):
     """How many slabs run at once here, and the memory each may use.
 
-    Local workers share ``memory_limit``: the most of them (at most
-    ``workers``) whose share still holds a slab with ``halo``.  Tasks on a
-    Dask cluster run on other machines and each has the whole limit.
+    Local workers share ``memory_limit``: up to ``workers`` of them, as many
+    as cut the planes each one reads (its cores and their halos) by
+    ``PARALLEL_GAIN`` or more.  Tasks on a Dask cluster run on other
+    machines and each has the whole limit.
 
     Returns
     -------
@@ -170,14 +176,19 @@ def fitting_workers(shape, memory_limit, halo, workers, scheduler=None, bytes_pe
     """
     if scheduler is not None:
         return 1, float(memory_limit)
-    for n in range(max(1, int(workers)), 1, -1):
+    # Planes read (cores plus halos) per worker: a smaller share means more
+    # slabs and more halo planes, and more slab faces to check.
+    best = (float(len(plan_slabs(shape, memory_limit, halo, bytes_per_voxel))
+                  * 2 * halo + shape[0]), 1)  # raises when nothing fits
+    for n in range(2, max(1, int(workers)) + 1):
         try:
-            plan_slabs(shape, memory_limit / n, halo, bytes_per_voxel)
+            slabs = plan_slabs(shape, memory_limit / n, halo, bytes_per_voxel)
         except InputError:
-            continue
-        return n, memory_limit / n
-    plan_slabs(shape, memory_limit, halo, bytes_per_voxel)  # raises when nothing fits
-    return 1, float(memory_limit)
+            break
+        cost = (shape[0] + len(slabs) * 2 * halo) / min(n, len(slabs))
+        if cost * PARALLEL_GAIN < best[0]:
+            best = (cost, n)
+    return best[1], memory_limit / best[1]
 
 
 # ----------------------------------------------------------------------------- segmentation

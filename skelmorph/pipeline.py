@@ -208,9 +208,10 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
         smoothing and the clean-ups work in slabs; ROIs, vessel enhancement,
         hysteresis and the other measure sets need the scan in memory.
     workers, scheduler
-        Slabs run in ``workers`` local processes (default one per core; they
-        share ``memory_limit``, and fewer run when a slab's halo needs a
-        larger share), or on a Dask cluster at ``scheduler``
+        Slabs run in up to ``workers`` local processes (default one per
+        core; they share ``memory_limit``, and only as many run as make the
+        work per process smaller, see
+        :func:`skelmorph.chunked.fitting_workers`), or on a Dask cluster at ``scheduler``
         (``tcp://host:port``), each task with the whole limit.
     progress : bool
         Show a progress bar over the stages on stderr.

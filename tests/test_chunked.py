@@ -140,8 +140,8 @@ def test_local_workers_share_the_memory_limit(tmp_path):
     """Two local workers split the limit (twice the slabs) and give the same graph."""
     ph = foam(size=128.0, cell=16.0, rod_radius=2.5, seed=2)
     path = tmp_path / "scan.npy"
-    np.save(path, np.concatenate([ph.mask, ph.mask[::-1]]).astype(np.uint8))  # 256 planes
-    limit = _planes_limit(ph.mask.shape, 192)  # one worker: cores of 128 planes, two: 32
+    np.save(path, np.concatenate([ph.mask, ph.mask[::-1]] * 2).astype(np.uint8))  # 512 planes
+    limit = _planes_limit(ph.mask.shape, 384)  # one worker: cores of 320 planes, two: 128
     one = sm.analyze(path, memory_limit=limit, n_radii=0, tree=None, workers=1,
                      out=tmp_path / "one")
     two = sm.analyze(path, memory_limit=limit, n_radii=0, tree=None, workers=2,
@@ -153,15 +153,18 @@ def test_local_workers_share_the_memory_limit(tmp_path):
     assert step["local_workers"] == 2
 
 
-def test_fitting_workers_fall_back_to_fewer_for_deep_halos():
+def test_fitting_workers_add_workers_only_where_they_pay():
     shape = (512, 100, 100)
-    limit = _planes_limit(shape, 160)
+    limit = _planes_limit(shape, 384)
+    # one worker reads 512 + 2 x 2 x 32 planes; two read (512 + 4 x 2 x 32) / 2 each
     assert chunked.fitting_workers(shape, limit, 32, 2) == (2, limit / 2)
-    # 80 planes each cannot hold 16 + 2 x 48: one worker with the whole limit
-    assert chunked.fitting_workers(shape, limit, 48, 2) == (1, limit)
-    assert chunked.fitting_workers(shape, limit, 48, 2, scheduler="tcp://x:1") == (1, limit)
+    # halos of 64: eight thin slabs per two workers read as much as two thick ones
+    assert chunked.fitting_workers(shape, limit, 64, 2) == (1, limit)
+    assert chunked.fitting_workers(shape, limit, 32, 2, scheduler="tcp://x:1") == (1, limit)
+    # shares that leave thin cores: no gain, one worker with the whole limit
+    assert chunked.fitting_workers(shape, _planes_limit(shape, 200), 32, 2)[0] == 1
     with pytest.raises(InputError, match="per slab"):
-        chunked.fitting_workers(shape, limit, 80, 2)
+        chunked.fitting_workers(shape, limit, 192, 2)
 
 
 def test_grey_scan_in_slabs_uses_a_streamed_otsu_threshold(tmp_path):
