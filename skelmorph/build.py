@@ -50,7 +50,7 @@ from .skeleton import resample_isotropic, skeletonize
 from .centreline_radius import centreline_radius
 from .cleanup import (_dissolve_degree_two, _drop_spurious_loops, _extend_tips, _finish,
                       _merge_close_junctions, _prune_spurs)
-from .rawgraph import _raw_graph, _raw_graph_of_voxels, _restore_vanished, _timed
+from .rawgraph import _centreline_voxels, _raw_graph_of_voxels, _restore_vanished, _timed
 from .voxels import euler_characteristic
 
 __all__ = ["skeleton_graph", "graph_from_skeleton", "graph_from_voxels", "centreline_radius",
@@ -72,8 +72,18 @@ def graph_from_skeleton(skel, mask, spacing=None, *, unit="um", prune=True, prun
     mask = np.asarray(mask, bool)
     if skel.shape != mask.shape:
         raise InputError(f"skeleton shape {skel.shape} differs from mask shape {mask.shape}")
-    w = _raw_graph(skel, mask, spacing, radius_method, timings, dist_sq)
-    return _clean_graph(w, euler_characteristic(np.argwhere(skel), skel.shape),
+    coords, vox_r = _centreline_voxels(skel, mask, spacing, radius_method, timings, dist_sq)
+    return _graph_of_centreline(coords, vox_r, mask, spacing, unit, prune, prune_factor,
+                                min_branch_length, merge_junctions, extend_tips, smoothing,
+                                timings, meta)
+
+
+def _graph_of_centreline(coords, vox_r, mask, spacing, unit, prune, prune_factor,
+                         min_branch_length, merge_junctions, extend_tips, smoothing, timings,
+                         meta):
+    """The graph of centreline voxels ``coords`` (C order) of ``mask``."""
+    w = _raw_graph_of_voxels(coords, mask.shape, spacing, vox_r, timings)
+    return _clean_graph(w, euler_characteristic(coords, mask.shape),
                         lambda: count_cavities(mask), spacing, unit, mask.shape, prune,
                         prune_factor, min_branch_length, merge_junctions, extend_tips, smoothing,
                         timings, meta, mask=mask)
@@ -251,13 +261,15 @@ def skeleton_graph(mask, spacing=None, prune=True, *, unit="um", prune_factor=1.
     if method != "ordered":  # ours never erases a component
         with _timed(timings, "restore"):
             skel = _restore_vanished(mask, skel)
-    graph = graph_from_skeleton(skel, mask, spacing, unit=unit, prune=prune,
-                                prune_factor=prune_factor, min_branch_length=min_branch_length,
-                                merge_junctions=merge_junctions, extend_tips=extend_tips,
-                                smoothing=smoothing, timings=timings, dist_sq=dist_sq,
-                                meta={"resampled_isotropic": resampled,
-                                      "thinning_spacing": [x * scale for x in spacing],
-                                      "thinning": method})
+    # Only the centreline's voxels and radii go on: the skeleton image and the
+    # distance map (5 bytes per voxel) are freed before the graph is built.
+    coords, vox_r = _centreline_voxels(skel, mask, spacing, "shells", timings, dist_sq)
+    del skel, dist_sq
+    graph = _graph_of_centreline(coords, vox_r, mask, spacing, unit, prune, prune_factor,
+                                 min_branch_length, merge_junctions, extend_tips, smoothing,
+                                 timings, {"resampled_isotropic": resampled,
+                                           "thinning_spacing": [x * scale for x in spacing],
+                                           "thinning": method})
     # Report the source image's voxel size and shape, not the resampled ones.
     return rescale_graph(graph, scale, source_spacing, source_shape)
 

@@ -95,8 +95,8 @@ class _Work:
         return polyline_lengths(np.concatenate(self.pts), offsets)
 
 
-def _raw_graph(skel, mask, spacing, radius_method, timings, dist_sq=None):
-    """Nodes and point-ordered edges straight from the centreline voxels."""
+def _centreline_voxels(skel, mask, spacing, radius_method, timings, dist_sq=None):
+    """Centreline voxel indices (C order) and their distances to the background."""
     with _timed(timings, "graph"):
         coords = np.argwhere(skel)
     with _timed(timings, "radii"):
@@ -104,7 +104,7 @@ def _raw_graph(skel, mask, spacing, radius_method, timings, dist_sq=None):
             vox_r = np.sqrt(dist_sq[tuple(coords.T)].astype(np.float64))
         else:
             vox_r = centreline_radius(mask, coords, spacing, method=radius_method)
-    return _raw_graph_of_voxels(coords, skel.shape, spacing, vox_r, timings)
+    return coords, vox_r
 
 
 def _raw_graph_of_voxels(coords, shape, spacing, vox_r, timings):
