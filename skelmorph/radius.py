@@ -25,15 +25,21 @@ from numba import njit
 __all__ = ["equivalent_radius", "branch_volumes"]
 
 
+#: Label values of the flood: background (and the padding), object voxels
+#: not reached yet; claimed voxels hold a branch index, or -1 for nobody.
+_OUTSIDE, _UNCLAIMED = -3, -2
+
+
 @njit(cache=True)
-def _flood_labels(obj, labels, seeds, offsets, capacity):
+def _flood_labels(labels, seeds, offsets, capacity):
     """Give every object voxel the label of its nearest seed (face-neighbour hops).
 
-    ``obj`` is a padded flat mask, ``labels`` (int32, -2 = unassigned) holds
-    the seeds' labels; ties go to the seed reached first in the fixed queue
-    order, so the result is deterministic.
+    ``labels`` is a padded flat int32 image: ``_OUTSIDE`` off the object
+    (and on the padding), ``_UNCLAIMED`` on it, the seeds' labels at the
+    seeds.  Ties go to the seed reached first in the fixed queue order, so
+    the result is deterministic.  The queue has the seeds' index type.
     """
-    queue = np.empty(capacity, np.int64)
+    queue = np.empty(capacity, seeds.dtype)
     tail = 0
     for s in seeds:
         queue[tail] = s
@@ -45,7 +51,7 @@ def _flood_labels(obj, labels, seeds, offsets, capacity):
         lab = labels[p]
         for k in range(offsets.size):
             q = p + offsets[k]
-            if obj[q] and labels[q] == -2:
+            if labels[q] == _UNCLAIMED:
                 labels[q] = lab
                 queue[tail] = q
                 tail += 1
@@ -145,16 +151,22 @@ def branch_volumes(mask, spacing, raw_points, label_of_point, n_edges, count_fro
     hi = np.maximum.reduceat(l_sorted, np.flatnonzero(first))
     seed_label = np.where(lo == hi, lo, -1).astype(np.int32)
     seeds = f_sorted[first]
-    obj = np.pad(mask, 1).ravel()
-    labels = np.full(obj.size, -2, np.int32)
+    # One padded int32 image holds the object, the flood and its result (no
+    # padded copy of the mask): 4 bytes per voxel and the queue.
+    labels = np.full(tuple(pshape), _OUTSIDE, np.int32)
+    inner = labels[tuple(slice(1, -1) for _ in range(ndim))]
+    np.copyto(inner, _UNCLAIMED, where=mask)
+    labels = labels.ravel()
+    n_obj = int(np.count_nonzero(mask))
+    # A point off the mask (a merged node) still seeds, but is not counted.
+    off_mask = seeds[labels[seeds] == _OUTSIDE]
     labels[seeds] = seed_label
-    obj_seeded = obj.copy()
-    obj_seeded[seeds] = True  # a point off the mask (a merged node) still seeds
-    offsets = np.concatenate([strides, -strides])
-    _flood_labels(obj_seeded, labels, seeds, offsets, int(np.count_nonzero(obj_seeded)))
-    if count_from:
-        labels[:(count_from + 1) * strides[0]] = -2  # planes before count_from (and the pad)
-    if count_to is not None:
-        labels[(count_to + 1) * strides[0]:] = -2
-    got = labels[obj & (labels >= 0)]
+    index = np.int32 if labels.size < 2**31 else np.int64
+    _flood_labels(labels, seeds.astype(index), np.concatenate([strides, -strides]).astype(index),
+                  n_obj + len(off_mask))
+    labels[off_mask] = _OUTSIDE
+    # Planes from count_from up to count_to (a chunk leaves its halo out).
+    top = shape[0] if count_to is None else count_to
+    claimed = labels[(count_from + 1) * strides[0]:(top + 1) * strides[0]]
+    got = claimed[claimed >= 0]
     return np.bincount(got, minlength=n_edges).astype(float) * float(np.prod(sp))
