@@ -840,6 +840,18 @@ class LazyMask:
         return self.foreground == self.size
 
 
+def _bar_steps(label, enabled):
+    """A ``step(done, total)`` callback drawing a progress bar (made at the first step)."""
+    from .progress import Progress
+    bar = []
+
+    def step(done, total):
+        if not bar:
+            bar.append(Progress(total, label, enabled=bool(enabled)))
+        bar[0].update(done - bar[0].done)
+    return step
+
+
 def chunked_bone_measures(volume, seg, spacing, foreground, cavities, memory_limit, *,
                           workers=1, scheduler=None, progress=False, workdir=None, timings=None):
     """The bone set of a scan read in slabs.
@@ -880,10 +892,13 @@ def chunked_bone_measures(volume, seg, spacing, foreground, cavities, memory_lim
         timings[f"bone {name}"] = now - clock[0]
         clock[0] = now
 
-    bs, smi = surface_and_smi(lazy, spacing, bv, slab_voxels=slab_voxels)
+    bs, smi = surface_and_smi(lazy, spacing, bv, slab_voxels=slab_voxels,
+                              step=_bar_steps("surface", progress))
     lap("surface")
-    chi = int(round(euler_in_region(lazy, slab_voxels=slab_voxels)))
-    dchi = euler_in_region(lazy, True, slab_voxels=slab_voxels)
+    chi = int(round(euler_in_region(lazy, slab_voxels=slab_voxels,
+                                    step=_bar_steps("euler", progress))))
+    dchi = euler_in_region(lazy, True, slab_voxels=slab_voxels,
+                           step=_bar_steps("euler (edges)", progress))
     lap("euler")
     # Mean intercepts: pairs counted by the plane of their first voxel.
     nz = lazy.shape[0]

@@ -398,3 +398,18 @@ def test_euler_by_slabs_equals_whole_and_box_formula():
                                                                                     abs=1e-9)
         assert euler_in_region(m, cyl, slab_voxels=layers * plane) == pytest.approx(whole_cyl,
                                                                                    abs=1e-9)
+
+
+def test_slab_wise_bone_parts_report_each_slab():
+    """The step callbacks behind the progress bars of the bone set in slabs:
+    one call per slab, counting up to the number of slabs."""
+    from skelmorph.measure.bone import euler_in_region, surface_and_smi
+    m = sm.phantoms.make("foam", seed=5).mask
+    plane = m.shape[1] * m.shape[2]
+    calls = {"surface": [], "euler": []}
+    surface_and_smi(m, (1.0, 1.0, 1.0), slab_voxels=16 * plane,
+                    step=lambda d, t: calls["surface"].append((d, t)))
+    euler_in_region(m, slab_voxels=16 * plane, step=lambda d, t: calls["euler"].append((d, t)))
+    for name, seen in calls.items():
+        total = seen[0][1]
+        assert total >= 2 and seen == [(k, total) for k in range(1, total + 1)], name

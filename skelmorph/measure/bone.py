@@ -90,7 +90,7 @@ def edge_corrected_euler(mask):
     return chi, chi - faces / 2 + edges / 4 - corners / 8
 
 
-def euler_in_region(mask, region=None, slab_voxels=None):
+def euler_in_region(mask, region=None, slab_voxels=None, step=None):
     """Edge-corrected Euler contribution of a 3D structure inside any region.
 
     The foreground is the union of closed unit cubes (26-connected, as
@@ -110,6 +110,7 @@ def euler_in_region(mask, region=None, slab_voxels=None):
     along axis 0 (about ``slab_voxels`` voxels each, one halo plane): each
     slab's cells are weighted by the share of that slab's own voxels, so the
     slabs add up to the whole (the same additivity) in memory of one slab.
+    ``step(done, total)``, when given, is called after each slab.
 
     Returns
     -------
@@ -125,7 +126,8 @@ def euler_in_region(mask, region=None, slab_voxels=None):
     plane = m.shape[1] * m.shape[2]
     layers = max(4, int(np.ceil((slab_voxels or SLAB_VOXELS) / max(plane, 1))))
     total = 0.0
-    for z0 in range(0, nz, layers):
+    starts = range(0, nz, layers)
+    for done, z0 in enumerate(starts, 1):
         z1 = min(z0 + layers, nz)
         lo, hi = max(0, z0 - 1), min(nz, z1 + 1)
         sub = np.pad(m[lo:hi], 1)
@@ -141,6 +143,8 @@ def euler_in_region(mask, region=None, slab_voxels=None):
         else:
             r[a:b, 1:-1, 1:-1] = region[z0:z1]
         total += _cell_sum(sub, r)
+        if step is not None:
+            step(done, len(starts))
     return total
 
 
@@ -295,7 +299,7 @@ def _own_faces(verts, faces, spacing, z0, z1, lo):
     return faces[(cz >= z0) & (cz < z1)]
 
 
-def surface_and_smi(mask, spacing, bv=None, sigma=1.0, roi=None, slab_voxels=None):
+def surface_and_smi(mask, spacing, bv=None, sigma=1.0, roi=None, slab_voxels=None, step=None):
     """Bone surface (marching-cubes mesh) and the structure model index.
 
     BS is the area of the isosurface at 0.5 of the binary image
@@ -314,7 +318,8 @@ def surface_and_smi(mask, spacing, bv=None, sigma=1.0, roi=None, slab_voxels=Non
     voxels each, halos as deep as the smoothing kernel plus two planes) and
     each slab keeps the triangles of its own cube layers: areas add up, so
     the result equals one mesh of the whole volume (tested) while memory
-    stays that of one slab.
+    stays that of one slab.  ``step(done, total)``, when given, is called
+    after each slab.
 
     Returns
     -------
@@ -336,7 +341,10 @@ def surface_and_smi(mask, spacing, bv=None, sigma=1.0, roi=None, slab_voxels=Non
     bs = s = grow = shrink = 0.0
     votes = [0.0, 0]
     plane = m.shape[1] * m.shape[2]
-    for z0, z1, lo, hi in _slabs(m.shape[0], plane, halo, slab_voxels):
+    slabs = list(_slabs(m.shape[0], plane, halo, slab_voxels))
+    for done, (z0, z1, lo, hi) in enumerate(slabs, 1):
+        if step is not None and done > 1:
+            step(done - 1, len(slabs))
         # The binary mesh needs no halo: planes z0..z1 hold exactly the cube
         # layers z0..z1-1, and each cube's triangles depend on its own 8
         # voxels (so all of them are the slab's own, including triangles
@@ -376,6 +384,8 @@ def surface_and_smi(mask, spacing, bv=None, sigma=1.0, roi=None, slab_voxels=Non
         s += area
         grow += plus
         shrink += minus
+    if step is not None and slabs:
+        step(len(slabs), len(slabs))
     outward = 1.0 if votes[1] and votes[0] / votes[1] < 0.5 else -1.0
     dsdr = outward * (grow - shrink) / (2 * eps)
     smi = 6.0 * bv * dsdr / (s * s) if s > 0 else float("nan")
