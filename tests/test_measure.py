@@ -149,6 +149,15 @@ def test_thickness_written_into_the_distance_map():
     np.testing.assert_array_equal(got, local_thickness(m, (1.5, 1, 1), method="all"))
 
 
+def test_thickness_beyond_the_key_range_is_refused():
+    """Centres are sorted by 64-bit keys holding a 32-bit voxel index: a
+    phase of 2^32 voxels or more is refused before any work (a broadcast
+    view, so nothing of that size is allocated)."""
+    huge = np.broadcast_to(np.ones((1, 1, 1), bool), (2048, 2048, 1024))
+    with pytest.raises(InputError, match="slabs"):
+        local_thickness(huge)
+
+
 @pytest.mark.parametrize("spacing", [(1.0, 1.0, 1.0), (1.0, 0.7, 1.3)])
 def test_ridge_thickness_with_a_short_containment_table(monkeypatch, spacing):
     """Balls larger than the containment table fall back to the geometric

@@ -25,6 +25,7 @@ import numpy as np
 from scipy import ndimage as ndi
 
 from .. import thinning as _thinning  # noqa: F401  (selects numba's thread pool)
+from ..errors import InputError
 from ..grid import c_strides, neighbour_offsets
 
 __all__ = ["local_thickness", "ridge_centres", "bounded_local_thickness", "MAX_BALL_VOXELS"]
@@ -67,6 +68,64 @@ def _paint_clipped(out, centres, off, value, nz, ny, nx):
                 k = (zz * ny + yy) * nx + xx
                 if out[k] == 0:
                     out[k] = value
+
+
+@numba.njit(parallel=True, cache=True, nogil=True)
+def _paint_group(out, keys, deltas, off, reach, value, nz, ny, nx):
+    """:func:`_paint` for the balls that lie inside the array and
+    :func:`_paint_clipped` for the others, for centres given as sort keys
+    (:func:`_centre_keys`; the centre is the low 32 bits)."""
+    plane = ny * nx
+    for i in numba.prange(len(keys)):
+        c = np.int64(keys[i] & np.uint64(0xFFFFFFFF))
+        z = c // plane
+        y = (c - z * plane) // nx
+        x = c - z * plane - y * nx
+        if (reach[0] <= z < nz - reach[0] and reach[1] <= y < ny - reach[1]
+                and reach[2] <= x < nx - reach[2]):
+            for j in range(len(deltas)):
+                k = c + deltas[j]
+                if out[k] == 0:
+                    out[k] = value
+        else:
+            for j in range(off.shape[0]):
+                zz = z + off[j, 0]
+                yy = y + off[j, 1]
+                xx = x + off[j, 2]
+                if 0 <= zz < nz and 0 <= yy < ny and 0 <= xx < nx:
+                    k = (zz * ny + yy) * nx + xx
+                    if out[k] == 0:
+                        out[k] = value
+
+
+@numba.njit(cache=True, nogil=True)
+def _centre_keys(keep, radius_bits):
+    """One uint64 per centre (``keep[i]`` set): the complement of its radius's
+    float32 bits above its flat index, so that sorting the keys orders the
+    centres by radius, largest first, then by index (radii are >= 0, whose
+    bits grow with the value).  8 bytes per centre in all."""
+    n = 0
+    for i in range(keep.size):
+        if keep[i]:
+            n += 1
+    keys = np.empty(n, np.uint64)
+    j = 0
+    for i in range(keep.size):
+        if keep[i]:
+            keys[j] = (np.uint64(0xFFFFFFFF - radius_bits[i]) << np.uint64(32)) | np.uint64(i)
+            j += 1
+    return keys
+
+
+@numba.njit(cache=True, nogil=True)
+def _group_starts(keys):
+    """Start of every run of equal radius in sorted keys, and the end."""
+    starts = [0]
+    for i in range(1, len(keys)):
+        if (keys[i] >> np.uint64(32)) != (keys[i - 1] >> np.uint64(32)):
+            starts.append(i)
+    starts.append(len(keys))
+    return np.array(starts, np.int64)
 
 
 @numba.njit(parallel=True, cache=True, nogil=True)
@@ -127,9 +186,9 @@ def _containment_table(r_max, spacing, offs):
     return length, need, complete
 
 
-def _ridge_points(dist, spacing):
-    """Ridge voxels as flat indices into ``dist``, and their radii: one
-    compiled pass, 1 byte of flags per voxel (no padded copy: voxels on the
+def _ridge_flags_of(dist, spacing):
+    """Flags of the ridge voxels (uint8, flat) and the flat float32 distance
+    map: one compiled pass, 1 byte of flags per voxel (no padded copy: voxels on the
     array's faces check their neighbours' bounds).
 
     A voxel is dropped when the voxel set its ball paints lies inside the
@@ -150,6 +209,13 @@ def _ridge_points(dist, spacing):
     keep = np.zeros(d.size, np.uint8)
     flat = np.ascontiguousarray(d).reshape(-1)
     _ridge_flags(flat, *shape3, offs3, deltas, steps, table_len, need, complete, keep)
+    return keep, flat
+
+
+def _ridge_points(dist, spacing):
+    """Ridge voxels (:func:`_ridge_flags_of`) as flat indices into ``dist``,
+    and their radii."""
+    keep, flat = _ridge_flags_of(dist, spacing)
     points = np.flatnonzero(keep)
     del keep
     return points, flat[points]
@@ -180,6 +246,11 @@ def _ball_offsets(r_max, spacing):
     return off[order], length[order]
 
 
+def _key_radius(key):
+    """The float32 radius of a centre's sort key (:func:`_centre_keys`)."""
+    return np.array([0xFFFFFFFF - int(key >> np.uint64(32))], np.uint32).view(np.float32)[0]
+
+
 def local_thickness(mask, spacing=None, method="ridge", dist=None, reuse_dist=False):
     """Local thickness map (diameter of the largest inscribed ball), in physical units.
 
@@ -206,21 +277,31 @@ def local_thickness(mask, spacing=None, method="ridge", dist=None, reuse_dist=Fa
     """
     mask = np.asarray(mask, bool)
     spacing = np.ones(mask.ndim) if spacing is None else np.asarray(spacing, float)
+    if mask.size >= 2**32:
+        raise InputError(f"local thickness of {mask.size} voxels at once is beyond the "
+                         "2^32 this method indexes; analyse the scan in slabs "
+                         "(--memory-limit)")
     if dist is None:
         dist = ndi.distance_transform_edt(mask, sampling=spacing)
     out_shape = mask.shape
     if not mask.any():
         return np.zeros(out_shape, np.float32)
-    # Centres as flat indices of the padded output, without per-axis index
-    # arrays (the ridge can hold a quarter of the voxels of thin rods).
+    # Centres as sort keys (radius, then flat index; 8 bytes per centre, no
+    # per-axis index arrays: the ridge can hold a quarter of the voxels of
+    # thin rods, and most voxels of the space around a skeleton).
+    d = np.ascontiguousarray(dist, np.float32)
     if method == "ridge":
-        cflat, r = _ridge_points(dist, spacing)
+        keep, flat = _ridge_flags_of(d, spacing)
     elif method == "all":
-        cflat = np.flatnonzero(mask.ravel())
-        r = np.asarray(dist, np.float32).ravel()[cflat]
+        keep, flat = mask.reshape(-1).view(np.uint8), d.reshape(-1)
     else:
         raise ValueError("method must be 'ridge' or 'all'")
-    r_max = float(r.max())
+    keys = _centre_keys(keep, flat.view(np.uint32))
+    del keep, flat
+    keys.sort()  # largest radius first; each radius's centres in index order
+    if not len(keys):
+        return np.zeros(out_shape, np.float32)
+    r_max = float(_key_radius(keys[0]))
     off, off_len = _ball_offsets(r_max, spacing)
     shape3 = (1,) * (3 - len(out_shape)) + tuple(out_shape)
     off3 = np.zeros((len(off), 3), np.int64)
@@ -234,36 +315,20 @@ def local_thickness(mask, spacing=None, method="ridge", dist=None, reuse_dist=Fa
         result.fill(0)
     else:
         result = np.zeros(out_shape, np.float32)
+    del d
     out = result.reshape(-1)
-    # Largest radius first; a voxel keeps the first value painted on it.  The
-    # centres are gathered one radius group at a time: a sorted copy of them
-    # would cost 8 bytes per centre, and the ridge can hold most voxels.
-    order = np.argsort(-r, kind="stable")
-    r_sorted = r[order]
-    del r
-    bounds = np.flatnonzero(np.diff(r_sorted)) + 1
-    starts = np.concatenate([[0], bounds])
-    stops = np.concatenate([bounds, [len(r_sorted)]])
-    plane = shape3[1] * shape3[2]
-    for a, b in zip(starts, stops):
-        radius = r_sorted[a]
+    # Largest radius first; a voxel keeps the first value painted on it.
+    starts = _group_starts(keys)
+    for a, b in zip(starts[:-1].tolist(), starts[1:].tolist()):
+        radius = _key_radius(keys[a])
         m = int(np.searchsorted(off_len, radius, side="left"))  # offsets with |o| < radius
         if m == 0:
             continue
-        centres = cflat[order[a:b]]
         # Balls inside the array are painted by flat offsets, the others clipped.
         reach = np.abs(off3[:m]).max(axis=0)
-        z = centres // plane
-        y = (centres - z * plane) // shape3[2]
-        x = centres - z * plane - y * shape3[2]
-        inside = ((z >= reach[0]) & (z < shape3[0] - reach[0]) & (y >= reach[1])
-                  & (y < shape3[1] - reach[1]) & (x >= reach[2]) & (x < shape3[2] - reach[2]))
-        del z, y, x
-        value = np.float32(2 * radius)
-        _paint(out, centres[inside], deltas[:m], value)
-        if not inside.all():
-            _paint_clipped(out, centres[~inside], off3[:m], value, *shape3)
-    del order, cflat
+        _paint_group(out, keys[a:b], deltas[:m], off3[:m], reach, np.float32(2 * radius),
+                     *shape3)
+    del keys
     np.multiply(result, mask, out=result)  # 0 outside the phase, without a negated copy
     return result
 
