@@ -840,16 +840,48 @@ class LazyMask:
         return self.foreground == self.size
 
 
-def _bar_steps(label, enabled):
-    """A ``step(done, total)`` callback drawing a progress bar (made at the first step)."""
-    from .progress import Progress
-    bar = []
+#: Working memory of the surface meshes of a bone slab, bytes per voxel
+#: (marching cubes of the binary and the smoothed slab; measured, rounded up).
+BONE_SLAB_BYTES_PER_VOXEL = 64
 
-    def step(done, total):
-        if not bar:
-            bar.append(Progress(total, label, enabled=bool(enabled)))
-        bar[0].update(done - bar[0].done)
-    return step
+#: Planes the surface, Euler and intercept parts read beyond a plane range:
+#: the smoothing kernel's reach plus two before, one more after.
+_BONE_HALO = 6
+
+
+class _PlaneBlock(LazyMask):
+    """Planes ``lo:hi`` of a lazy mask read once and served as if from the
+    whole mask (the slab-wise bone code asks only for planes in the block)."""
+
+    def __init__(self, volume, seg, foreground, lo, hi):
+        super().__init__(volume, seg, foreground)
+        self.lo, self.hi = int(lo), int(hi)
+        self.block = seg(volume.planes(self.lo, self.hi))
+
+    def __getitem__(self, key):
+        key = key if isinstance(key, tuple) else (key,)
+        z = key[0]
+        if not isinstance(z, slice) or z.step not in (None, 1):
+            raise TypeError("a lazy mask is read by plane ranges only")
+        a, b, _ = z.indices(self.shape[0])
+        if a < self.lo or max(a, b) > self.hi:
+            raise IndexError(f"planes {a}-{b} are outside the block {self.lo}-{self.hi}")
+        return self.block[(slice(a - self.lo, max(a, b) - self.lo),) + key[1:]]
+
+
+def bone_slab_task(volume, seg, foreground, spacing, a, b):
+    """The additive bone parts of planes ``a:b``: surface sums over cube
+    layers a..b-1, Euler contributions of the planes (plain and
+    edge-corrected) and intercept counts of pairs starting in them."""
+    from .measure.bone import euler_in_region, mil_counts, surface_sums
+    nz = volume.shape[0]
+    block = _PlaneBlock(volume, seg, foreground, max(0, a - _BONE_HALO),
+                        min(nz, b + _BONE_HALO + 1))
+    whole = (b - a + 2 * _BONE_HALO + 2) * volume.shape[1] * volume.shape[2]  # one pass each
+    return a, {"surface": surface_sums(block, spacing, slab_voxels=whole, layers=(a, b)),
+               "euler": euler_in_region(block, slab_voxels=whole, planes=(a, b)),
+               "euler_edge": euler_in_region(block, True, slab_voxels=whole, planes=(a, b)),
+               "intercepts": mil_counts(block[a:min(nz, b + 2)], n_first=b - a)}
 
 
 def chunked_bone_measures(volume, seg, spacing, foreground, cavities, memory_limit, *,
@@ -867,8 +899,8 @@ def chunked_bone_measures(volume, seg, spacing, foreground, cavities, memory_lim
     in slabs.  All equal the whole volume's (tested).  The plates and rods
     need components of the whole surface skeleton and are not computed.
 
-    ``timings``, a dict, gets the seconds of each part ("bone surface",
-    "bone euler", "bone intercepts", "bone Tb.Th", "bone Tb.Sp", "bone Tb.N.direct").
+    ``timings``, a dict, gets the seconds of each part ("bone surface,
+    euler, intercepts", "bone Tb.Th", "bone Tb.Sp", "bone Tb.N.direct").
 
     Returns
     -------
@@ -876,14 +908,13 @@ def chunked_bone_measures(volume, seg, spacing, foreground, cavities, memory_lim
     """
     import time
 
-    from .measure.bone import euler_in_region, mil_counts, mil_fit, surface_and_smi
+    from .measure.bone import mil_fit, smi_of_sums
     from .progress import Progress
     from .slab_thickness import slab_local_thickness
 
     lazy = LazyMask(volume, seg, foreground)
     voxel = float(np.prod(spacing))
     tv, bv = lazy.size * voxel, foreground * voxel
-    slab_voxels = max(2**22, int(memory_limit // 64))  # marching cubes: ~60 bytes/voxel
     timings = {} if timings is None else timings
     clock = [time.perf_counter()]
 
@@ -892,29 +923,33 @@ def chunked_bone_measures(volume, seg, spacing, foreground, cavities, memory_lim
         timings[f"bone {name}"] = now - clock[0]
         clock[0] = now
 
-    bs, smi = surface_and_smi(lazy, spacing, bv, slab_voxels=slab_voxels,
-                              step=_bar_steps("surface", progress))
-    lap("surface")
-    chi = int(round(euler_in_region(lazy, slab_voxels=slab_voxels,
-                                    step=_bar_steps("euler", progress))))
-    dchi = euler_in_region(lazy, True, slab_voxels=slab_voxels,
-                           step=_bar_steps("euler (edges)", progress))
-    lap("euler")
-    # Mean intercepts: pairs counted by the plane of their first voxel.
+    # Surface, Euler characteristics and intercepts: additive over plane
+    # ranges, each read once by a task (in parallel on local workers).
+    from .engine import execute, local_workers
+    n_run = 1 if scheduler is not None else local_workers(workers)
+    plane = lazy.shape[1] * lazy.shape[2]
     nz = lazy.shape[0]
-    planes = max(1, slab_voxels // (lazy.shape[1] * lazy.shape[2]))
-    starts = range(0, nz, planes)
-    bar = Progress(len(starts), "intercepts", enabled=bool(progress))
+    planes = max(8, int(memory_limit // BONE_SLAB_BYTES_PER_VOXEL // n_run // plane))
+    tasks = [(volume, seg, foreground, tuple(spacing), a, min(a + planes, nz))
+             for a in range(0, nz, planes)]
+    bar = Progress(len(tasks), "surface, Euler, intercepts", enabled=bool(progress))
+    parts = {}
+    for a, part in execute(bone_slab_task, tasks, workers=n_run, scheduler=scheduler,
+                           name="skelmorph-bone-slab"):
+        parts[a] = part
+        bar.update()
+    ordered = [parts[a] for a in sorted(parts)]  # summed in plane order: deterministic
+    bs, smi = smi_of_sums(np.sum([p["surface"] for p in ordered], axis=0), bv, spacing)
+    chi = int(round(sum(p["euler"] for p in ordered)))
+    dchi = sum(p["euler_edge"] for p in ordered)
     total = {}
-    for a in starts:
-        n_first = min(planes, nz - a)
-        for v, (c, p) in mil_counts(lazy[a:min(nz, a + n_first + 2)], n_first=n_first).items():
+    for p in ordered:
+        for v, (c, n) in p["intercepts"].items():
             t = total.setdefault(v, [0, 0])
             t[0] += c
-            t[1] += p
-        bar.update()
+            t[1] += n
     da, axes = mil_fit(total, spacing)
-    lap("intercepts")
+    lap("surface, euler, intercepts")
     out = {"BV/TV": bv / tv, "BS/BV": bs / bv, "Conn.D": (cavities - dchi) / tv + 0.0,
            "SMI": smi, "DA": da, "TV": tv, "BV": bv, "BS": bs, "BS/TV": bs / tv,
            "euler_characteristic": chi, "euler_edge_corrected": dchi, "cavities": cavities,

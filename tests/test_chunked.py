@@ -384,9 +384,12 @@ def test_bone_measures_in_slabs_equal_the_whole(tmp_path):
                      measures="bone", tree=None, n_radii=0, out=tmp_path / "out")
     s = res.summary
     assert s["n_chunks"] >= 2
-    for key in ("BV/TV", "BS/BV", "SMI", "Conn.D", "euler_characteristic",
+    for key in ("BV/TV", "BS/BV", "Conn.D", "euler_characteristic",
                 "euler_edge_corrected", "cavities", "DA"):
         assert s[key] == pytest.approx(whole[key], rel=1e-9, abs=1e-12), key
+    # SMI's dS/dr is a small difference of two large areas: the smoothed
+    # mesh's area summed over plane ranges differs by ~1e-9, SMI by ~1e-7.
+    assert s["SMI"] == pytest.approx(whole["SMI"], rel=1e-6)
     # float32 maps, summed in float64 here and by numpy's float32 mean there
     for key in ("Tb.Th", "Tb.Th.SD", "Tb.Sp", "Tb.Sp.SD", "Tb.N"):
         assert s[key] == pytest.approx(whole[key], rel=1e-6), key

@@ -409,16 +409,25 @@ def test_euler_by_slabs_equals_whole_and_box_formula():
                                                                                    abs=1e-9)
 
 
-def test_slab_wise_bone_parts_report_each_slab():
-    """The step callbacks behind the progress bars of the bone set in slabs:
-    one call per slab, counting up to the number of slabs."""
-    from skelmorph.measure.bone import euler_in_region, surface_and_smi
-    m = sm.phantoms.make("foam", seed=5).mask
-    plane = m.shape[1] * m.shape[2]
-    calls = {"surface": [], "euler": []}
-    surface_and_smi(m, (1.0, 1.0, 1.0), slab_voxels=16 * plane,
-                    step=lambda d, t: calls["surface"].append((d, t)))
-    euler_in_region(m, slab_voxels=16 * plane, step=lambda d, t: calls["euler"].append((d, t)))
-    for name, seen in calls.items():
-        total = seen[0][1]
-        assert total >= 2 and seen == [(k, total) for k in range(1, total + 1)], name
+
+def test_bone_parts_of_plane_ranges_add_up_to_the_whole():
+    """Euler contributions of plane ranges and surface sums of cube-layer
+    ranges (the parallel parts of the bone set in slabs) add up to the
+    whole: chi equals scikit-image's euler_number (reference library)."""
+    from skimage.measure import euler_number
+    from skelmorph.measure.bone import euler_in_region, smi_of_sums, surface_and_smi, surface_sums
+    ph = sm.phantoms.make("foam", seed=5, spacing=(1.5, 1.0, 1.0))
+    m = ph.mask
+    nz = m.shape[0]
+    cuts = [0, 13, 40, 41, nz]
+    ranges = list(zip(cuts[:-1], cuts[1:]))
+    assert sum(euler_in_region(m, planes=r) for r in ranges) == euler_number(m, connectivity=3)
+    whole_box = euler_in_region(m, True)
+    assert sum(euler_in_region(m, True, planes=r) for r in ranges) == pytest.approx(whole_box,
+                                                                                   abs=1e-9)
+    bv = float(m.sum()) * float(np.prod(ph.spacing))
+    bs, smi = surface_and_smi(m, ph.spacing, bv, slab_voxels=10**12)
+    sums = np.sum([surface_sums(m, ph.spacing, slab_voxels=10**12, layers=r) for r in ranges],
+                  axis=0)
+    got_bs, got_smi = smi_of_sums(sums, bv, ph.spacing)
+    assert got_bs == pytest.approx(bs, rel=1e-12) and got_smi == pytest.approx(smi, rel=1e-6)

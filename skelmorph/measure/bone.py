@@ -38,7 +38,7 @@ from .thickness import bounded_local_thickness
 
 __all__ = ["bone_measures", "direct_trabecular_number", "edge_corrected_euler", "mil_counts",
            "mil_fit", "euler_in_region", "mil_fabric",
-           "surface_and_smi", "BONE_KEYS"]
+           "surface_and_smi", "surface_sums", "smi_of_sums", "BONE_KEYS"]
 
 BONE_KEYS = ("BV/TV", "BS/BV", "Tb.Th", "Tb.Th.SD", "Tb.Sp", "Tb.Sp.SD", "Tb.N", "Conn.D",
              "SMI", "DA")
@@ -90,7 +90,7 @@ def edge_corrected_euler(mask):
     return chi, chi - faces / 2 + edges / 4 - corners / 8
 
 
-def euler_in_region(mask, region=None, slab_voxels=None, step=None):
+def euler_in_region(mask, region=None, slab_voxels=None, planes=None):
     """Edge-corrected Euler contribution of a 3D structure inside any region.
 
     The foreground is the union of closed unit cubes (26-connected, as
@@ -110,7 +110,8 @@ def euler_in_region(mask, region=None, slab_voxels=None, step=None):
     along axis 0 (about ``slab_voxels`` voxels each, one halo plane): each
     slab's cells are weighted by the share of that slab's own voxels, so the
     slabs add up to the whole (the same additivity) in memory of one slab.
-    ``step(done, total)``, when given, is called after each slab.
+    ``planes=(a, b)`` sums the slabs of planes a..b-1 only (parts of a
+    partition add up to the whole).
 
     Returns
     -------
@@ -126,9 +127,9 @@ def euler_in_region(mask, region=None, slab_voxels=None, step=None):
     plane = m.shape[1] * m.shape[2]
     layers = max(4, int(np.ceil((slab_voxels or SLAB_VOXELS) / max(plane, 1))))
     total = 0.0
-    starts = range(0, nz, layers)
-    for done, z0 in enumerate(starts, 1):
-        z1 = min(z0 + layers, nz)
+    first, last = (0, nz) if planes is None else planes
+    for z0 in range(first, last, layers):
+        z1 = min(z0 + layers, last)
         lo, hi = max(0, z0 - 1), min(nz, z1 + 1)
         sub = np.pad(m[lo:hi], 1)
         # Weights: this slab's own voxels (planes z0..z1-1) that count.
@@ -143,8 +144,6 @@ def euler_in_region(mask, region=None, slab_voxels=None, step=None):
         else:
             r[a:b, 1:-1, 1:-1] = region[z0:z1]
         total += _cell_sum(sub, r)
-        if step is not None:
-            step(done, len(starts))
     return total
 
 
@@ -279,12 +278,14 @@ def _inside_faces(verts, faces, spacing, roi):
 SLAB_VOXELS = 2 ** 22
 
 
-def _slabs(nz, plane, halo, slab_voxels=None):
+def _slabs(nz, plane, halo, slab_voxels=None, layers_from=0, layers_to=None):
     """Slabs of cube layers along axis 0: (first layer, end layer, lo, hi),
-    the volume planes lo:hi holding the layers plus ``halo`` planes each side."""
+    the volume planes lo:hi holding the layers plus ``halo`` planes each side;
+    the cube layers from ``layers_from`` up to ``layers_to`` (default all nz - 1)."""
     layers = max(8, int(np.ceil((slab_voxels or SLAB_VOXELS) / max(plane, 1))))
-    for z0 in range(0, max(nz - 1, 0), layers):
-        z1 = min(z0 + layers, nz - 1)
+    end = max(nz - 1, 0) if layers_to is None else min(layers_to, max(nz - 1, 0))
+    for z0 in range(layers_from, end, layers):
+        z1 = min(z0 + layers, end)
         yield z0, z1, max(0, z0 - halo), min(nz, z1 + 1 + halo)
 
 
@@ -299,7 +300,7 @@ def _own_faces(verts, faces, spacing, z0, z1, lo):
     return faces[(cz >= z0) & (cz < z1)]
 
 
-def surface_and_smi(mask, spacing, bv=None, sigma=1.0, roi=None, slab_voxels=None, step=None):
+def surface_and_smi(mask, spacing, bv=None, sigma=1.0, roi=None, slab_voxels=None):
     """Bone surface (marching-cubes mesh) and the structure model index.
 
     BS is the area of the isosurface at 0.5 of the binary image
@@ -318,13 +319,42 @@ def surface_and_smi(mask, spacing, bv=None, sigma=1.0, roi=None, slab_voxels=Non
     voxels each, halos as deep as the smoothing kernel plus two planes) and
     each slab keeps the triangles of its own cube layers: areas add up, so
     the result equals one mesh of the whole volume (tested) while memory
-    stays that of one slab.  ``step(done, total)``, when given, is called
-    after each slab.
+    stays that of one slab (:func:`surface_sums` of parts of the volume add
+    up the same way).
 
     Returns
     -------
     bs : float
     smi : float
+    """
+    m = _check_3d(mask)
+    if not m.any() or m.all():
+        return 0.0, float("nan")
+    if bv is None:
+        bv = float(np.count_nonzero(m)) * float(np.prod(spacing))
+    return smi_of_sums(surface_sums(m, spacing, sigma, roi, slab_voxels), bv, spacing)
+
+
+def smi_of_sums(sums, bv, spacing):
+    """BS and SMI from the :func:`surface_sums` of a whole volume (or their sum
+    over parts of it)."""
+    bs, s, grow, shrink, vote_sum, vote_count = (float(x) for x in sums)
+    eps = 0.01 * min(float(x) for x in spacing)
+    outward = 1.0 if vote_count and vote_sum / vote_count < 0.5 else -1.0
+    dsdr = outward * (grow - shrink) / (2 * eps)
+    smi = 6.0 * bv * dsdr / (s * s) if s > 0 else float("nan")
+    return bs, float(smi)
+
+
+def surface_sums(mask, spacing, sigma=1.0, roi=None, slab_voxels=None, layers=None):
+    """The additive parts of :func:`surface_and_smi` over the cube layers
+    ``layers=(a, b)`` (default all): binary mesh area, smoothed mesh area,
+    its areas moved out and in by eps along the normals, and the outward
+    votes (sum, count).
+
+    Returns
+    -------
+    (6,) float array
     """
     from skimage.measure import marching_cubes
 
@@ -332,19 +362,14 @@ def surface_and_smi(mask, spacing, bv=None, sigma=1.0, roi=None, slab_voxels=Non
     m = _check_3d(mask)
     spacing = tuple(float(s) for s in spacing)
     sp = np.asarray(spacing)
-    if not m.any() or m.all():
-        return 0.0, float("nan")
-    if bv is None:
-        bv = float(np.count_nonzero(m)) * float(np.prod(spacing))
     halo = (int(4.0 * sigma + 0.5) if sigma else 0) + 2
     eps = 0.01 * min(spacing)
     bs = s = grow = shrink = 0.0
     votes = [0.0, 0]
     plane = m.shape[1] * m.shape[2]
-    slabs = list(_slabs(m.shape[0], plane, halo, slab_voxels))
-    for done, (z0, z1, lo, hi) in enumerate(slabs, 1):
-        if step is not None and done > 1:
-            step(done - 1, len(slabs))
+    first, last = (0, None) if layers is None else layers
+    slabs = list(_slabs(m.shape[0], plane, halo, slab_voxels, first, last))
+    for z0, z1, lo, hi in slabs:
         # The binary mesh needs no halo: planes z0..z1 hold exactly the cube
         # layers z0..z1-1, and each cube's triangles depend on its own 8
         # voxels (so all of them are the slab's own, including triangles
@@ -384,12 +409,7 @@ def surface_and_smi(mask, spacing, bv=None, sigma=1.0, roi=None, slab_voxels=Non
         s += area
         grow += plus
         shrink += minus
-    if step is not None and slabs:
-        step(len(slabs), len(slabs))
-    outward = 1.0 if votes[1] and votes[0] / votes[1] < 0.5 else -1.0
-    dsdr = outward * (grow - shrink) / (2 * eps)
-    smi = 6.0 * bv * dsdr / (s * s) if s > 0 else float("nan")
-    return bs, float(smi)
+    return np.array([bs, s, grow, shrink, votes[0], votes[1]], np.float64)
 
 
 def _local_thickness_in(phase, no_wall, spacing):
