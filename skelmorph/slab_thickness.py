@@ -82,15 +82,15 @@ def radius_task(volume, seg, spacing, which, a, b, halo, memory_limit):
 
 def thickness_task(volume, seg, spacing, which, a, b, halo, step):
     """Sum, sum of squares and count of the local thickness on a core."""
-    from .measure.thickness import bounded_local_thickness
+    from .measure.thickness import bounded_local_thickness, masked_mean_sd
     nz = volume.shape[0]
     lo, hi = _slab_extent(a, b, halo, nz)
     lo -= lo % step  # the coarse lattice of the whole volume
     phase, d = _phase_and_distance(volume, seg, spacing, which, lo, hi)
     local, _ = bounded_local_thickness(phase, d, spacing, step=step, reuse_dist=True)
     del d
-    core = local[a - lo:b - lo][phase[a - lo:b - lo]].astype(np.float64)
-    return float(core.sum()), float((core * core).sum()), int(core.size)
+    total, total_sq, count = masked_mean_sd(local[a - lo:b - lo], phase[a - lo:b - lo], sums=True)
+    return float(total), float(total_sq), int(count)
 
 
 def slab_local_thickness(volume, seg, spacing, which, memory_limit, *, workers=1,

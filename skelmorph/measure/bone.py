@@ -34,7 +34,7 @@ import numpy as np
 from scipy import ndimage as ndi
 
 from ..errors import InputError
-from .thickness import bounded_local_thickness
+from .thickness import bounded_local_thickness, masked_mean_sd
 
 __all__ = ["bone_measures", "direct_trabecular_number", "edge_corrected_euler", "mil_counts",
            "mil_fit", "euler_in_region", "mil_fabric",
@@ -460,7 +460,7 @@ def direct_trabecular_number(skeleton, spacing, roi=None):
     off = ~skel
     free = off if roi is None else off & roi
     local, _ = _local_thickness_in(free, off, spacing)
-    return 1.0 / float(local[free].mean())
+    return 1.0 / masked_mean_sd(local, free)[0]
 
 
 def bone_measures(mask, spacing, unit="um", thickness_maps=False, progress=None, roi=None,
@@ -538,13 +538,24 @@ def bone_measures(mask, spacing, unit="um", thickness_maps=False, progress=None,
     # Distances run to the other phase inside the region only: outside it
     # (and beyond the image edge) there is no wall.
     th, th_step = _local_thickness_in(m, m if roi is None else m | ~roi, spacing)
+    tb_th, th_sd = masked_mean_sd(th, m)
     step("thickness")
-    sp, sp_step = _local_thickness_in(space, space if roi is None else ~m, spacing)
-    step("separation")
-    tb_th, tb_sp = float(th[m].mean()), float(sp[space].mean())
-    th_sd, sp_sd = float(th[m].std()), float(sp[space].std())
+    # The plates and rods need the solid's thickness map and the skeleton:
+    # both go before the separation map is made (4 + 1 bytes per voxel less).
+    # (plate_rod_measures makes its own distance map, and frees it early.)
+    pr = plate_rod_measures(m, spacing, thickness=th, skeleton=skel, tv=tv,
+                            return_labels=plate_rod_map)
+    del skel
+    if plate_rod_map:
+        pr, labels = pr
     if not thickness_maps:
-        del sp  # 4 bytes per voxel less for the steps below
+        del th
+    step("plates and rods")
+    sp, sp_step = _local_thickness_in(space, space if roi is None else ~m, spacing)
+    tb_sp, sp_sd = masked_mean_sd(sp, space)
+    if not thickness_maps:
+        del sp
+    step("separation")
     bs, smi = surface_and_smi(m, spacing, bv, roi=roi)
     # Slab by slab (equal to Odgaard & Gundersen's box formula, tested).
     chi = int(round(euler_in_region(m)))
@@ -553,13 +564,6 @@ def bone_measures(mask, spacing, unit="um", thickness_maps=False, progress=None,
     cavities = count_cavities(m)
     da, axes = mil_fabric(m, spacing, roi=roi)
     step("surface, connectivity, anisotropy")
-    # (plate_rod_measures makes its own distance map, and frees it early.)
-    pr = plate_rod_measures(m, spacing, thickness=th, skeleton=skel, tv=tv,
-                            return_labels=plate_rod_map)
-    del skel
-    if plate_rod_map:
-        pr, labels = pr
-    step("plates and rods")
     out = {
         "BV/TV": bv / tv,
         "BS/BV": bs / bv,

@@ -28,7 +28,8 @@ from .. import thinning as _thinning  # noqa: F401  (selects numba's thread pool
 from ..errors import InputError
 from ..grid import c_strides, neighbour_offsets
 
-__all__ = ["local_thickness", "ridge_centres", "bounded_local_thickness", "MAX_BALL_VOXELS"]
+__all__ = ["local_thickness", "ridge_centres", "bounded_local_thickness", "masked_mean_sd",
+           "MAX_BALL_VOXELS"]
 
 #: :func:`bounded_local_thickness` paints balls of at most this radius, in
 #: voxels; larger spaces are measured on a coarser lattice.
@@ -244,6 +245,48 @@ def _ball_offsets(r_max, spacing):
     off, length = off[keep], length[keep]
     order = np.argsort(length, kind="stable")
     return off[order], length[order]
+
+
+@numba.njit(cache=True, nogil=True)
+def _masked_sums(values, mask, centre):
+    """Sum and sum of squares of ``values - centre`` where ``mask``, and the count
+    (float64 accumulators, no copy of the selected values)."""
+    total = 0.0
+    total_sq = 0.0
+    count = 0
+    for i in range(values.size):
+        if mask[i]:
+            v = np.float64(values[i]) - centre
+            total += v
+            total_sq += v * v
+            count += 1
+    return total, total_sq, count
+
+
+def masked_mean_sd(values, mask, sums=False):
+    """Mean and standard deviation of a map's values inside ``mask``.
+
+    Two compiled passes (mean, then squared deviations from it) in float64,
+    with no copy of the selected values: a thickness map's phase can hold
+    most of a large volume.  ``sums=True`` returns the one-pass sum, sum of
+    squares and count instead (to be added over slabs).
+
+    Returns
+    -------
+    mean, sd : float (NaN when the mask is empty); or sum, sum_sq, count
+    """
+    v = np.ascontiguousarray(values).reshape(-1)
+    m = np.ascontiguousarray(mask, bool).reshape(-1).view(np.uint8)
+    if v.size != m.size:
+        raise ValueError("values and mask differ in size")
+    total, total_sq, count = _masked_sums(v, m, 0.0)
+    if sums:
+        return total, total_sq, count
+    if count == 0:
+        return float("nan"), float("nan")
+    mean = total / count
+    dev, dev_sq, _ = _masked_sums(v, m, mean)
+    return mean, float(np.sqrt(max(dev_sq / count - (dev / count) ** 2, 0.0)))
 
 
 def _key_radius(key):
