@@ -328,10 +328,11 @@ def plate_rod_measures(mask, spacing, thickness=None, dsq=None, skeleton=None, t
         dsq = distance_map_sq(m, sp)
     if skeleton is None:
         skeleton = thin(m, sp, dsq=dsq, keep="surfaces")
-    flat, cbar = background_numbers(skeleton)
+    flat = np.flatnonzero(skeleton)
     local = 2.0 * np.sqrt(dsq.ravel()[flat].astype(float))  # thickness at the skeleton
     if own_dsq:
-        del dsq  # only its values on the skeleton are needed
+        del dsq  # only its values on the skeleton are needed (freed before the padded copy)
+    flat, cbar = background_numbers(skeleton)
     n = flat.size
     rows, cols, lens = _links(flat, m.shape, sp)
     plate_vox, n_plates, n_pp = _plate_skeleton(n, rows, cols, lens, cbar, local, voxel,
