@@ -499,9 +499,9 @@ def bench_chunks(sizes, limit):
     CPU time, peak memory); up to 512^3 also the same foam as a noisy grey
     scan smoothed and cleaned in slabs."""
     print(f"\nanalysis in slabs (memory limit {limit}) vs in memory vs our thinning "
-          "(child processes, VmHWM):")
+          "(child processes, peak of the process and its workers):")
     tile = foam(size=256.0, cell=16.0, rod_radius=2.5, seed=0).mask
-    walls = {"slabs": [], "memory": []}
+    walls = {"slabs": [], "memory": [], "bone": []}
     with tempfile.TemporaryDirectory(dir=".") as tmp:
         for size in sizes:
             reps = max(1, size // 256)
@@ -520,6 +520,12 @@ def bench_chunks(sizes, limit):
                     f"memory_limit={limit!r}, tree=None, n_radii=0, figures=False, "
                     f"out={str(Path(tmp) / 'out')!r}); print(r.summary['n_chunks'], "
                     "r.summary['n_branches'])" + stop}
+            # The bone set in slabs (the 1024^3 case takes about half an hour).
+            runs["bone"] = clock_code + (
+                f"r = sm.analyze({str(path)!r}, spacing=1, memory_limit={limit!r}, "
+                f"measures='bone', tree=None, n_radii=0, figures=False, "
+                f"out={str(Path(tmp) / 'out')!r}); print(r.summary['n_chunks'], "
+                "r.summary['n_branches'])" + stop)
             if size <= 512:
                 # The same foam as a noisy grey scan: smoothing, Otsu and the
                 # default clean-ups read through in every slab.
@@ -540,7 +546,7 @@ def bench_chunks(sizes, limit):
                     "r.summary['n_branches'])" + stop)
             for name, code in runs.items():
                 rows[name] = _run_child(code)
-                if name in ("slabs", "grey"):
+                if name in ("slabs", "grey", "bone"):
                     import shutil
                     shutil.rmtree(Path(tmp) / "out", ignore_errors=True)
             base = rows["thinning"]
@@ -559,11 +565,39 @@ def bench_chunks(sizes, limit):
             print(f"  time grows as N^{np.polyfit(x, y, 1)[0]:.2f} ({name})")
 
 
+#: Prepended to a child's code: a thread that samples the resident memory of
+#: the child and its worker processes together (VmHWM counts one process).
+_TREE_SAMPLER = (
+    "import os as _os, threading as _th, time as _tm\n"
+    "_peak = [0]\n"
+    "def _rss(pid):\n"
+    "    try:\n"
+    "        return int(open(f'/proc/{pid}/statm').read().split()[1]) * _os.sysconf('SC_PAGE_SIZE')\n"
+    "    except OSError:\n"
+    "        return 0\n"
+    "def _kids(pid):\n"
+    "    out = []\n"
+    "    for t in _os.listdir(f'/proc/{pid}/task'):\n"
+    "        try:\n"
+    "            out += [int(k) for k in open(f'/proc/{pid}/task/{t}/children').read().split()]\n"
+    "        except OSError:\n"
+    "            pass\n"
+    "    return out\n"
+    "def _watch():\n"
+    "    me = _os.getpid()\n"
+    "    while True:\n"
+    "        _peak[0] = max(_peak[0], _rss(me) + sum(_rss(k) for k in _kids(me)))\n"
+    "        _tm.sleep(0.2)\n"
+    "_th.Thread(target=_watch, daemon=True).start()\n")
+
+
 def _run_child(code):
-    """Run ``code`` in a fresh interpreter: (its output lines, its peak RSS in MB)."""
+    """Run ``code`` in a fresh interpreter: (its output lines, its peak memory in
+    MB: the larger of its VmHWM and the sampled sum over it and its workers)."""
     import subprocess
-    code += ("; print([l.split()[1] for l in open('/proc/self/status') "
-             "if l.startswith('VmHWM')][0])")
+    code = _TREE_SAMPLER + code + (
+        "; print(max(int([l.split()[1] for l in open('/proc/self/status') "
+        "if l.startswith('VmHWM')][0]), _peak[0] // 1024))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     lines = out.stdout.strip().splitlines()
     return lines[:-1], float(lines[-1]) / 1024
