@@ -690,9 +690,11 @@ def chunked_branch_volumes(volume, seg, spacing, slabs, halo, progress=False):
 
 
 #: Working memory of the whole analysis in memory, bytes per voxel: the
-#: graph alone, and with field measures (measured on foams by
-#: ``scripts/bench.py --only memory``; rounded up).
-IN_MEMORY_BYTES_PER_VOXEL = (24, 40)
+#: graph alone, and with field measures (measured on a 512^3 foam by
+#: ``scripts/bench.py --only memory``: 14.9 and, with the bone set, 17.8;
+#: rounded up for denser structures, whose thinning queue and branch flood
+#: grow with the solid fraction).
+IN_MEMORY_BYTES_PER_VOXEL = (18, 24)
 
 
 def slab_volume(path, spacing, unit, memory_limit, sets):
