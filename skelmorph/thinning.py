@@ -675,5 +675,8 @@ def thin(mask, spacing=None, *, dsq=None, keep="curves"):
     _thin_kernel(img.ravel(), order, starts, slab_of_plane, plane, noff, dirs, _ADJ26, _ADJ6,
                  _N18, _FACE, np.ascontiguousarray(dsq3).ravel(), step_len, py, px, ny, nx,
                  PARALLEL_MIN, keep == "surfaces")
-    out = (img[1:-1, 1:-1, 1:-1] & PRESENT).astype(bool)
+    del order, starts
+    # The PRESENT bit (1) straight into a bool array: no uint8 temporary.
+    out = np.empty(vol.shape, bool)
+    np.bitwise_and(img[1:-1, 1:-1, 1:-1], PRESENT, out=out.view(np.uint8))
     return out[0] if ndim == 2 else out
