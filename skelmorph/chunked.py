@@ -843,7 +843,7 @@ class LazyMask:
 
 
 #: Working memory of the surface meshes of a bone slab, bytes per voxel
-#: (marching cubes of the binary and the smoothed slab; measured, rounded up).
+#: (marching cubes of the binary and the smoothed slab: about 60, rounded up).
 BONE_SLAB_BYTES_PER_VOXEL = 64
 
 #: Planes the surface, Euler and intercept parts read beyond a plane range:
@@ -910,6 +910,7 @@ def chunked_bone_measures(volume, seg, spacing, foreground, cavities, memory_lim
     """
     import time
 
+    from .engine import execute, local_workers
     from .measure.bone import mil_fit, smi_of_sums
     from .progress import Progress
     from .slab_thickness import slab_local_thickness
@@ -927,7 +928,6 @@ def chunked_bone_measures(volume, seg, spacing, foreground, cavities, memory_lim
 
     # Surface, Euler characteristics and intercepts: additive over plane
     # ranges, each read once by a task (in parallel on local workers).
-    from .engine import execute, local_workers
     n_run = 1 if scheduler is not None else local_workers(workers)
     plane = lazy.shape[1] * lazy.shape[2]
     nz = lazy.shape[0]

@@ -38,44 +38,13 @@ MAX_BALL_VOXELS = 16
 
 
 @numba.njit(parallel=True, cache=True, nogil=True)
-def _paint(out, centres, deltas, value):
-    """Give ``value`` to the unpainted voxels of every ball (flat offsets
-    ``deltas`` around ``centres``).  All balls of one call share the value,
-    so threads writing the same voxel agree."""
-    for i in numba.prange(len(centres)):
-        c = centres[i]
-        for j in range(len(deltas)):
-            k = c + deltas[j]
-            if out[k] == 0:
-                out[k] = value
-
-
-@numba.njit(parallel=True, cache=True, nogil=True)
-def _paint_clipped(out, centres, off, value, nz, ny, nx):
-    """As :func:`_paint` for balls that may cross the array's edge: offsets
-    ``off`` (m, 3) applied to (z, y, x) of each flat centre, outside voxels
-    skipped."""
-    plane = ny * nx
-    for i in numba.prange(len(centres)):
-        c = centres[i]
-        z = c // plane
-        y = (c - z * plane) // nx
-        x = c - z * plane - y * nx
-        for j in range(off.shape[0]):
-            zz = z + off[j, 0]
-            yy = y + off[j, 1]
-            xx = x + off[j, 2]
-            if 0 <= zz < nz and 0 <= yy < ny and 0 <= xx < nx:
-                k = (zz * ny + yy) * nx + xx
-                if out[k] == 0:
-                    out[k] = value
-
-
-@numba.njit(parallel=True, cache=True, nogil=True)
 def _paint_group(out, keys, deltas, off, reach, value, nz, ny, nx):
-    """:func:`_paint` for the balls that lie inside the array and
-    :func:`_paint_clipped` for the others, for centres given as sort keys
-    (:func:`_centre_keys`; the centre is the low 32 bits)."""
+    """Give ``value`` to the unpainted voxels of the ball around every centre
+    (given as sort keys, :func:`_centre_keys`: the flat index is the low 32
+    bits).  Balls inside the array are reached by flat offsets ``deltas``;
+    balls within ``reach`` of a face by the offsets ``off`` (m, 3) applied to
+    (z, y, x), outside voxels skipped.  All balls of one call share the
+    value, so threads writing the same voxel agree."""
     plane = ny * nx
     for i in numba.prange(len(keys)):
         c = np.int64(keys[i] & np.uint64(0xFFFFFFFF))
