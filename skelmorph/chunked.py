@@ -614,15 +614,37 @@ def chunked_skeleton(volume, seg, spacing, *, memory_limit, workdir, halo=None, 
 
 # ----------------------------------------------------------------------------- other passes
 
-def chunked_cavities(volume, seg, slabs, progress=False):
-    """Enclosed background components of the segmented volume, counted slab
-    by slab: face-connected labels in each core, joined across slab faces
-    with a union-find, and those that touch the volume's faces left out
-    (as :func:`skelmorph.segment.count_cavities`)."""
+def cavity_task(volume, seg, a, b):
+    """Face-connected background components of planes ``a:b``: their number,
+    which touch the volume's faces (index 0 = structure), and the labels of
+    the first and last plane (to join them across slab faces)."""
     from scipy import ndimage as ndi
+    nz = volume.shape[0]
+    labels, n = ndi.label(~seg(volume.planes(a, b)))
+    edge = np.zeros(n + 1, bool)
+    for axis, index in ((1, 0), (1, -1), (2, 0), (2, -1)):
+        edge[np.unique(np.take(labels, index, axis=axis))] = True
+    if a == 0:
+        edge[np.unique(labels[0])] = True
+    if b == nz:
+        edge[np.unique(labels[-1])] = True
+    return a, n, edge, labels[0].copy(), labels[-1].copy()
 
+
+def chunked_cavities(volume, seg, slabs, progress=False, workers=1, scheduler=None):
+    """Enclosed background components of the segmented volume, counted slab
+    by slab: face-connected labels in each core (:func:`cavity_task`, on the
+    workers), joined across slab faces with a union-find, and those that
+    touch the volume's faces left out (as
+    :func:`skelmorph.segment.count_cavities`)."""
+    from .engine import execute
     from .progress import Progress
     bar = Progress(len(slabs), "cavities", enabled=bool(progress))
+    found = {}
+    for a, *rest in execute(cavity_task, [(volume, seg, a, b) for a, b in slabs],
+                            workers=workers, scheduler=scheduler, name="skelmorph-cavities"):
+        found[a] = rest
+        bar.update()
     parent = [0]  # label 0 = structure
     touches = [True]
 
@@ -632,59 +654,73 @@ def chunked_cavities(volume, seg, slabs, progress=False):
             i = parent[i]
         return i
 
-    nz = volume.shape[0]
     prev_last = None
-    for a, b in slabs:
-        bg = ~seg(volume.planes(a, b))
-        labels, n = ndi.label(bg)
+    for a, _ in slabs:  # in plane order: labels numbered as by one pass
+        n, edge, first, last = found.pop(a)
         base = len(parent) - 1
         parent.extend(range(base + 1, base + n + 1))
-        edge = np.zeros(n + 1, bool)
-        for axis, index in ((1, 0), (1, -1), (2, 0), (2, -1)):
-            edge[np.unique(np.take(labels, index, axis=axis))] = True
-        if a == 0:
-            edge[np.unique(labels[0])] = True
-        if b == nz:
-            edge[np.unique(labels[-1])] = True
         touches.extend(edge[1:].tolist())
-        glob = np.where(labels > 0, labels + base, 0)
+        first = np.where(first > 0, first + base, 0)
         if prev_last is not None:
-            both = (prev_last > 0) & (glob[0] > 0)
-            pairs = np.unique(np.column_stack([prev_last[both], glob[0][both]]), axis=0)
+            both = (prev_last > 0) & (first > 0)
+            pairs = np.unique(np.column_stack([prev_last[both], first[both]]), axis=0)
             for i, j in pairs.tolist():
                 ri, rj = find(i), find(j)
                 if ri != rj:
                     parent[rj] = ri
                     touches[ri] = touches[ri] or touches[rj]
-        prev_last = glob[-1].copy()
-        bar.update()
+        prev_last = np.where(last > 0, last + base, 0)
     roots = {find(i) for i in range(1, len(parent))}
     return sum(1 for r in roots if not touches[r])
 
 
-def chunked_branch_volumes(volume, seg, spacing, slabs, halo, progress=False):
-    """A ``volumes`` callable for :func:`skelmorph.radius.equivalent_radius`:
-    each branch's voxels counted slab by slab, every slab flooded with its
-    halo so that voxels near a face go to the same branch as in the whole."""
-    from .progress import Progress
+def branch_volume_task(volume, seg, spacing, a, b, halo, points, labels, n_edges):
+    """``(a, volumes)``: branch volumes counted on the core ``a:b``, flooded with its halo
+    (:func:`skelmorph.radius.branch_volumes`); ``points`` are the seed
+    points within the slab and its halo (physical units, whole-volume origin)."""
     from .radius import branch_volumes
+    lo, hi = _slab_extent(a, b, halo, volume.shape[0])
+    shift = np.zeros(points.shape[1])
+    shift[0] = lo * float(spacing[0])
+    return a, branch_volumes(seg(volume.planes(lo, hi)), spacing, points - shift, labels,
+                             n_edges, count_from=a - lo, count_to=b - lo)
+
+
+def chunked_branch_volumes(volume, seg, spacing, slabs, halo, progress=False, workers=1,
+                           scheduler=None):
+    """A ``volumes`` callable for :func:`skelmorph.radius.equivalent_radius`:
+    each branch's voxels counted slab by slab (:func:`branch_volume_task`,
+    on the workers), every slab flooded with its halo so that voxels near a
+    face go to the same branch as in the whole."""
+    from .engine import execute
+    from .progress import Progress
 
     sp = np.asarray(spacing, float)
 
     def volumes(raw_points, label_of_point, n_edges):
-        total = np.zeros(n_edges)
         zidx = np.rint(raw_points[:, 0] / sp[0]).astype(np.int64)
         nz = volume.shape[0]
-        bar = Progress(len(slabs), "branch radii", enabled=bool(progress))
-        for a, b in slabs:
+
+        def task(a, b):
             lo, hi = _slab_extent(a, b, halo, nz)
             pick = (zidx >= lo) & (zidx < hi)
-            mask = seg(volume.planes(lo, hi))
-            shift = np.zeros(raw_points.shape[1])
-            shift[0] = lo * sp[0]
-            total += branch_volumes(mask, sp, raw_points[pick] - shift, label_of_point[pick],
-                                    n_edges, count_from=a - lo, count_to=b - lo)
-            bar.update()
+            return (volume, seg, tuple(sp), a, b, halo, raw_points[pick], label_of_point[pick],
+                    n_edges)
+
+        bar = Progress(len(slabs), "branch radii", enabled=bool(progress))
+        total = np.zeros(n_edges)
+        # As many slabs' seed points at a time as run at once (each is a copy),
+        # added in slab order (the same sums whatever finishes first).
+        wave = len(slabs) if scheduler is not None else max(1, int(workers))
+        for k in range(0, len(slabs), wave):
+            parts = {}
+            for a, part in execute(branch_volume_task, [task(a, b) for a, b in slabs[k:k + wave]],
+                                   workers=workers, scheduler=scheduler,
+                                   name="skelmorph-branch-volumes"):
+                parts[a] = part
+                bar.update()
+            for a in sorted(parts):
+                total += parts[a]
         return total
     return volumes
 
@@ -795,15 +831,20 @@ def chunked_graph(volume, seg, *, memory_limit, workdir, halo=None, workers=1, s
     if timings is not None:
         timings["skeletonize"] = time.perf_counter() - t0
     found = {}
+    # The second passes use the thinning's slabs; they need less memory per
+    # voxel, so every local worker may run one.
+    from .engine import local_workers
+    n_run = 1 if scheduler is not None else local_workers(workers)
 
     def cavities():  # counted once, when first asked for
         if "n" not in found:
-            found["n"] = chunked_cavities(volume, seg, cs.slabs, progress)
+            found["n"] = chunked_cavities(volume, seg, cs.slabs, progress, n_run, scheduler)
         return found["n"]
 
     graph = graph_from_voxels(
         cs.coords, cs.radii, volume.shape, spacing, cavities=cavities,
-        volumes=chunked_branch_volumes(volume, seg, spacing, cs.slabs, cs.halo, progress),
+        volumes=chunked_branch_volumes(volume, seg, spacing, cs.slabs, cs.halo, progress,
+                                       n_run, scheduler),
         unit=volume.unit if unit is None else unit, prune=prune, prune_factor=prune_factor,
         min_branch_length=min_branch_length / scale, merge_junctions=merge_junctions,
         extend_tips=extend_tips, smoothing=smoothing, timings=timings,

@@ -110,6 +110,7 @@ def test_cavities_counted_across_slabs():
     slabs = plan_slabs(ph.mask.shape, _planes_limit(ph.mask.shape, 80), 32)
     assert len(slabs) >= 4
     assert chunked_cavities(vol, survey(vol), slabs) == count_cavities(ph.mask)
+    assert chunked_cavities(vol, survey(vol), slabs, workers=2) == count_cavities(ph.mask)
 
 
 def test_analyze_file_in_slabs_equals_in_memory(tmp_path):
@@ -149,6 +150,8 @@ def test_local_workers_share_the_memory_limit(tmp_path):
     assert two.summary["n_chunks"] > one.summary["n_chunks"] >= 2
     for key in ("n_nodes", "n_branches", "cycle_rank", "total_length", "mean_radius"):
         assert two.summary[key] == pytest.approx(one.summary[key], rel=1e-12), key
+    # branch volumes counted on both workers, added in slab order: the same radii
+    np.testing.assert_array_equal(two.graph.edge_radius, one.graph.edge_radius)
     step = [s for s in two.summary["preprocessing"] if s["step"] == "analysed in slabs"][0]
     assert step["local_workers"] == 2
 
