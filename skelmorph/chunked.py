@@ -874,7 +874,11 @@ class LazyMask:
         if not isinstance(z, slice) or z.step not in (None, 1):
             raise TypeError("a lazy mask is read by plane ranges only")
         a, b, _ = z.indices(self.shape[0])
-        return self.seg(self.volume.planes(a, b))[(slice(None),) + key[1:]]
+        return self._planes(a, b)[(slice(None),) + key[1:]]
+
+    def _planes(self, a, b):
+        """The segmented planes a..b-1."""
+        return self.seg(self.volume.planes(a, b))
 
     def any(self):
         return self.foreground > 0
@@ -901,15 +905,10 @@ class _PlaneBlock(LazyMask):
         self.lo, self.hi = int(lo), int(hi)
         self.block = seg(volume.planes(self.lo, self.hi))
 
-    def __getitem__(self, key):
-        key = key if isinstance(key, tuple) else (key,)
-        z = key[0]
-        if not isinstance(z, slice) or z.step not in (None, 1):
-            raise TypeError("a lazy mask is read by plane ranges only")
-        a, b, _ = z.indices(self.shape[0])
+    def _planes(self, a, b):
         if a < self.lo or max(a, b) > self.hi:
             raise IndexError(f"planes {a}-{b} are outside the block {self.lo}-{self.hi}")
-        return self.block[(slice(a - self.lo, max(a, b) - self.lo),) + key[1:]]
+        return self.block[a - self.lo:max(a, b) - self.lo]
 
 
 def bone_slab_task(volume, seg, foreground, spacing, a, b):
