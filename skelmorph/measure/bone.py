@@ -368,8 +368,7 @@ def surface_sums(mask, spacing, sigma=1.0, roi=None, slab_voxels=None, layers=No
     votes = [0.0, 0]
     plane = m.shape[1] * m.shape[2]
     first, last = (0, None) if layers is None else layers
-    slabs = list(_slabs(m.shape[0], plane, halo, slab_voxels, first, last))
-    for z0, z1, lo, hi in slabs:
+    for z0, z1, lo, hi in _slabs(m.shape[0], plane, halo, slab_voxels, first, last):
         # The binary mesh needs no halo: planes z0..z1 hold exactly the cube
         # layers z0..z1-1, and each cube's triangles depend on its own 8
         # voxels (so all of them are the slab's own, including triangles

@@ -182,25 +182,15 @@ def _ridge_flags_of(dist, spacing):
     return keep, flat
 
 
-def _ridge_points(dist, spacing):
-    """Ridge voxels (:func:`_ridge_flags_of`) as flat indices into ``dist``,
-    and their radii."""
-    keep, flat = _ridge_flags_of(dist, spacing)
-    points = np.flatnonzero(keep)
-    del keep
-    return points, flat[points]
-
-
 def ridge_centres(dist, spacing):
     """Foreground voxels whose painted ball is not inside a neighbour's.
 
-    One compiled pass over the padded distance map (1 byte per voxel of
-    flags besides it).
+    One compiled pass over the distance map (1 byte per voxel of flags
+    besides it).
 
     Returns flat indices into ``dist``.
     """
-    points, _ = _ridge_points(dist, spacing)
-    return points
+    return np.flatnonzero(_ridge_flags_of(dist, spacing)[0])
 
 
 def _ball_offsets(r_max, spacing):
@@ -293,8 +283,8 @@ def local_thickness(mask, spacing=None, method="ridge", dist=None, reuse_dist=Fa
         raise InputError(f"local thickness of {mask.size} voxels at once is beyond the "
                          "2^32 this method indexes; analyse the scan in slabs "
                          "(--memory-limit)")
-    if dist is None:
-        dist = ndi.distance_transform_edt(mask, sampling=spacing)
+    if dist is None:  # float32 from the start: the float64 map is not kept beside it
+        dist = ndi.distance_transform_edt(mask, sampling=spacing).astype(np.float32)
     out_shape = mask.shape
     if not mask.any():
         return np.zeros(out_shape, np.float32)
