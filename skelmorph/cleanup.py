@@ -243,6 +243,7 @@ def _finish(w, spacing, unit, shape, smoothing, meta, mask=None, volumes=None):
     offsets = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
     points = np.concatenate(w.pts) if w.pts else np.zeros((0, ndim))
     radius = np.concatenate(w.rad) if w.rad else np.zeros(0)
+    w.pts = w.rad = None  # the flat copies replace the per-edge arrays (w ends here)
     edges = np.column_stack([u, v]).astype(np.int64) if len(u) else np.zeros((0, 2), np.int64)
     degree = np.bincount(edges.ravel(), minlength=len(nodes)).astype(np.int64)
     # A ring anchor (one self-loop, nothing else) smooths as a closed curve.

@@ -134,6 +134,7 @@ def _raw_graph_of_voxels(coords, shape, spacing, vox_r, timings):
             is_node[anchor_of[ring_comps]] = True
             path_links = links[~is_node[links[:, 0]] & ~is_node[links[:, 1]]]
             slab_deg = np.bincount(path_links.ravel(), minlength=n)
+        del lab, touches  # components are found again below, after the ring anchors
 
         # Node ids: touching junction voxels (degree >= 3) form one node.
         junction = (deg >= 3) | clique
@@ -145,24 +146,29 @@ def _raw_graph_of_voxels(coords, shape, spacing, vox_r, timings):
         node_of_voxel = np.full(n, -1)
         node_of_voxel[node_vox] = node_id_of
         n_nodes = len(uniq)
-        pos_vox = coords * sp
+        del key, uniq, jlab
+        # Positions are made for the voxels that need them (coords * spacing,
+        # element for element), not for all: 24 bytes per voxel less.
+        node_vox_pos = coords[node_vox] * sp
         # A node sits on the voxel of its cluster nearest the cluster's centroid;
         # branch ends reach it through the cluster's voxels (no straight jumps).
         centroid = np.zeros((n_nodes, coords.shape[1]))
-        np.add.at(centroid, node_id_of, pos_vox[node_vox])
+        np.add.at(centroid, node_id_of, node_vox_pos)
         centroid /= np.bincount(node_id_of, minlength=n_nodes)[:, None]
-        gap = ((pos_vox[node_vox] - centroid[node_id_of]) ** 2).sum(axis=1)
+        gap = ((node_vox_pos - centroid[node_id_of]) ** 2).sum(axis=1)
+        del node_vox_pos, centroid
         pick = np.lexsort((node_vox, gap, node_id_of))
         first_of = np.unique(node_id_of[pick], return_index=True)[1]
         centre_vox = node_vox[pick[first_of]]
-        node_pos = pos_vox[centre_vox].copy()
-        pred = _cluster_predecessors(n, jlinks, centre_vox[junction[centre_vox]], pos_vox)
+        node_pos = coords[centre_vox] * sp
+        pred = _cluster_predecessors(n, jlinks, centre_vox[junction[centre_vox]], coords, sp)
         node_r = np.zeros(n_nodes)
         np.maximum.at(node_r, node_id_of, vox_r[node_vox])
         protected = np.zeros(n_nodes, bool)
         protected[node_of_voxel[node_vox[deg[node_vox] == 0]]] = True
+        del deg
         loops_u, loops_pts, loops_rad = _cluster_tunnels(
-            coords, junction, node_of_voxel, links, pos_vox, vox_r, node_pos, node_r, shape)
+            coords, junction, node_of_voxel, links, sp, vox_r, node_pos, node_r, shape)
 
         # Path voxels: order every branch with one depth-first traversal.
         slab = np.flatnonzero(~is_node)
@@ -170,6 +176,7 @@ def _raw_graph_of_voxels(coords, shape, spacing, vox_r, timings):
         if len(slab):
             ncomp, lab = _components(n, path_links)
             ends = slab[slab_deg[slab] < 2]
+            del slab, slab_deg
             _, first = np.unique(lab[ends], return_index=True)
             starts = np.sort(ends[first])
             both = np.concatenate([path_links, path_links[:, ::-1]])
@@ -214,32 +221,32 @@ def _raw_graph_of_voxels(coords, shape, spacing, vox_r, timings):
         if len(fa):
             vox_idx, offs = branch_voxel_paths(order, bounds, fa, la, pred)
             eu, ev = node_of_voxel[fa], node_of_voxel[la]
-            flat = pos_vox[vox_idx]
+            flat = coords[vox_idx] * sp
             flat_r = vox_r[vox_idx]
             flat_r[offs[:-1]], flat_r[offs[1:] - 1] = node_r[eu], node_r[ev]
             pts_list = [flat[a:b] for a, b in zip(offs[:-1].tolist(), offs[1:].tolist())]
             rad_list = [flat_r[a:b] for a, b in zip(offs[:-1].tolist(), offs[1:].tolist())]
-            u_list, v_list = list(eu), list(ev)
+            u_list, v_list = eu.tolist(), ev.tolist()
         u_list, v_list = list(u_list) + loops_u, list(v_list) + loops_u
         pts_list, rad_list = list(pts_list) + loops_pts, list(rad_list) + loops_rad
     return _Work(node_pos, node_r, protected, u_list, v_list, pts_list, rad_list,
                  shape, spacing)
 
 
-def _cluster_predecessors(n, jlinks, sources, pos_vox):
+def _cluster_predecessors(n, jlinks, sources, coords, sp):
     """Shortest-path predecessors inside junction clusters, towards each
     cluster's node voxel (``sources``); -1 at node voxels and elsewhere."""
     pred = np.full(n, -1, np.int64)
     if len(jlinks) == 0 or len(sources) == 0:
         return pred
-    w = np.linalg.norm(pos_vox[jlinks[:, 0]] - pos_vox[jlinks[:, 1]], axis=1)
+    w = np.linalg.norm(coords[jlinks[:, 0]] * sp - coords[jlinks[:, 1]] * sp, axis=1)
     g = sparse.coo_matrix((w, (jlinks[:, 0], jlinks[:, 1])), shape=(n, n)).tocsr()
     _, p, _ = csgraph.dijkstra(g, directed=False, indices=sources, min_only=True,
                             return_predecessors=True)
     return np.where(p >= 0, p, -1).astype(np.int64)
 
 
-def _cluster_tunnels(coords, junction, node_of_voxel, links, pos_vox, vox_r, node_pos, node_r,
+def _cluster_tunnels(coords, junction, node_of_voxel, links, sp, vox_r, node_pos, node_r,
                      shape):
     """Loops that lie wholly inside a junction cluster, as self-loops of its node.
 
@@ -275,7 +282,7 @@ def _cluster_tunnels(coords, junction, node_of_voxel, links, pos_vox, vox_r, nod
         cycles = sorted(nx.cycle_basis(g), key=len, reverse=True)
         for cycle in cycles[: int(1 - chi[nd])]:
             loops_u.append(int(nd))
-            loops_pts.append(np.vstack([node_pos[nd], pos_vox[cycle], node_pos[nd]]))
+            loops_pts.append(np.vstack([node_pos[nd], coords[cycle] * sp, node_pos[nd]]))
             loops_rad.append(np.concatenate([[node_r[nd]], vox_r[cycle], [node_r[nd]]]))
     return loops_u, loops_pts, loops_rad
 
