@@ -53,8 +53,7 @@ def _merge_close_junctions(w):
     rep = rep_of_group[group]
     keep = np.flatnonzero(~close)
     new_u, new_v = rep[u[keep]], rep[v[keep]]
-    pts = [w.pts[e] for e in keep.tolist()]
-    rad = [w.rad[e] for e in keep.tolist()]
+    pts, rad = w.pts.take(keep), w.rad.take(keep)
     moved = np.flatnonzero((new_u != u[keep]) | (new_v != v[keep]))
     for i in moved.tolist():  # only the branches whose end node was merged away
         a, b = new_u[i], new_v[i]
@@ -239,10 +238,9 @@ def _finish(w, spacing, unit, shape, smoothing, meta, mask=None, volumes=None):
     nodes = w.node_pos[alive]
     node_r = w.node_r[alive]
     ndim = len(spacing)
-    counts = np.array([len(p) for p in w.pts], np.int64)
-    offsets = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
-    points = np.concatenate(w.pts) if w.pts else np.zeros((0, ndim))
-    radius = np.concatenate(w.rad) if w.rad else np.zeros(0)
+    offsets = np.concatenate([[0], np.cumsum(w.pts.lengths())]).astype(np.int64)
+    points = w.pts.concatenate(np.zeros((0, ndim)))
+    radius = w.rad.concatenate(np.zeros(0))
     w.pts = w.rad = None  # the flat copies replace the per-edge arrays (w ends here)
     edges = np.column_stack([u, v]).astype(np.int64) if len(u) else np.zeros((0, 2), np.int64)
     degree = np.bincount(edges.ravel(), minlength=len(nodes)).astype(np.int64)

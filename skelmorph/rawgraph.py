@@ -10,6 +10,7 @@ from contextlib import contextmanager
 import numpy as np
 from scipy import ndimage as ndi
 from scipy import sparse
+from numba import njit
 from scipy.sparse import csgraph
 
 from ._kernels import branch_voxel_paths, walk_paths
@@ -53,6 +54,99 @@ def _restore_vanished(mask, skel):
     return skel
 
 
+@njit(cache=True, nogil=True)
+def _copy_blocks(flat, offsets, blocks, out, starts):
+    """out[starts[i]:...] = flat[offsets[b]:offsets[b + 1]] for b = blocks[i]."""
+    for i in range(blocks.size):
+        b = blocks[i]
+        k = starts[i]
+        for j in range(offsets[b], offsets[b + 1]):
+            out[k] = flat[j]
+            k += 1
+
+
+class EdgeArrays:
+    """Per-edge arrays (points or radii) used as a list by the clean-up.
+
+    The raw graph's branches are views cut on demand from one flat array
+    (``flat[offsets[b]:offsets[b + 1]]``); branches the clean-up makes or
+    changes are kept as arrays of their own.  A foam has millions of
+    branches, most never edited: one view object per branch and per array
+    cost about 50 bytes per centreline voxel more than the points themselves.
+    """
+
+    def __init__(self, flat, offsets, own=()):
+        self.flat = flat
+        self.offsets = np.asarray(offsets, np.int64)
+        self.own = list(own)
+        n = len(self.offsets) - 1
+        # slot >= 0: a block of ``flat``; slot < 0: own[-slot - 1].
+        self._slot = np.concatenate([np.arange(n, dtype=np.int64),
+                                     -1 - np.arange(len(self.own), dtype=np.int64)])
+        self._n = len(self._slot)
+
+    def __len__(self):
+        return self._n
+
+    def __getitem__(self, e):
+        if not -self._n <= e < self._n:
+            raise IndexError(e)
+        s = int(self._slot[e])
+        if s >= 0:
+            return self.flat[self.offsets[s]:self.offsets[s + 1]]
+        return self.own[-s - 1]
+
+    def __setitem__(self, e, array):
+        if not -self._n <= e < self._n:
+            raise IndexError(e)
+        self.own.append(array)
+        self._slot[e] = -len(self.own)
+
+    def __iter__(self):
+        return (self[e] for e in range(self._n))
+
+    def append(self, array):
+        if self._n == len(self._slot):  # grow by doubling: appends are amortised O(1)
+            self._slot = np.concatenate([self._slot, np.zeros(max(self._n, 16), np.int64)])
+        self.own.append(array)
+        self._slot[self._n] = -len(self.own)
+        self._n += 1
+
+    def take(self, keep):
+        """The arrays of edges ``keep`` (in that order); own arrays of dropped
+        edges are let go."""
+        slot = self._slot[:self._n][np.asarray(keep, np.int64)]
+        out = EdgeArrays(self.flat, self.offsets)
+        mine = np.flatnonzero(slot < 0)
+        out.own = [self.own[-int(s) - 1] for s in slot[mine]]
+        slot[mine] = -1 - np.arange(len(mine))
+        out._slot, out._n = slot, len(slot)
+        return out
+
+    def lengths(self):
+        """Number of rows of every edge's array."""
+        slot = self._slot[:self._n]
+        out = np.empty(self._n, np.int64)
+        flat = slot >= 0
+        out[flat] = self.offsets[slot[flat] + 1] - self.offsets[slot[flat]]
+        out[~flat] = [len(self.own[-int(s) - 1]) for s in slot[~flat]]
+        return out
+
+    def concatenate(self, empty):
+        """All edges' arrays end to end (``empty`` when there are none)."""
+        if self._n == 0:
+            return empty
+        counts = self.lengths()
+        starts = np.concatenate([[0], np.cumsum(counts)])
+        out = np.empty((int(starts[-1]),) + self.flat.shape[1:], self.flat.dtype)
+        slot = self._slot[:self._n]
+        flat = slot >= 0
+        _copy_blocks(self.flat, self.offsets, slot[flat], out, starts[:-1][flat])
+        for e in np.flatnonzero(~flat).tolist():
+            out[starts[e]:starts[e + 1]] = self.own[-int(slot[e]) - 1]
+        return out
+
+
 class _Work:
     """Editable graph during clean-up: node arrays + per-edge point lists."""
 
@@ -71,8 +165,8 @@ class _Work:
         """Keep only the edges with indices ``keep`` (in that order)."""
         self.u = [self.u[e] for e in keep]
         self.v = [self.v[e] for e in keep]
-        self.pts = [self.pts[e] for e in keep]
-        self.rad = [self.rad[e] for e in keep]
+        self.pts = self.pts.take(keep)
+        self.rad = self.rad.take(keep)
 
     def near_border(self, nodes):
         """True for nodes within their radius (+1.5 voxels) of an image face."""
@@ -88,11 +182,10 @@ class _Work:
         return deg
 
     def raw_lengths(self):
-        if not self.pts:
+        if not len(self.pts):
             return np.zeros(0)
-        counts = np.fromiter((len(p) for p in self.pts), np.int64, len(self.pts))
-        offsets = np.concatenate([[0], np.cumsum(counts)])
-        return polyline_lengths(np.concatenate(self.pts), offsets)
+        offsets = np.concatenate([[0], np.cumsum(self.pts.lengths())])
+        return polyline_lengths(self.pts.concatenate(None), offsets)
 
 
 def _centreline_voxels(skel, mask, spacing, radius_method, timings, dist_sq=None):
@@ -172,7 +265,7 @@ def _raw_graph_of_voxels(coords, shape, spacing, vox_r, timings):
 
         # Path voxels: order every branch with one depth-first traversal.
         slab = np.flatnonzero(~is_node)
-        u_list, v_list, pts_list, rad_list = [], [], [], []
+        u_list, v_list = [], []
         if len(slab):
             ncomp, lab = _components(n, path_links)
             ends = slab[slab_deg[slab] < 2]
@@ -221,16 +314,19 @@ def _raw_graph_of_voxels(coords, shape, spacing, vox_r, timings):
         if len(fa):
             vox_idx, offs = branch_voxel_paths(order, bounds, fa, la, pred)
             eu, ev = node_of_voxel[fa], node_of_voxel[la]
+            del order, pred, node_of_voxel  # voxel-sized arrays go before the points come
             flat = coords[vox_idx] * sp
             flat_r = vox_r[vox_idx]
+            del vox_idx
             flat_r[offs[:-1]], flat_r[offs[1:] - 1] = node_r[eu], node_r[ev]
-            pts_list = [flat[a:b] for a, b in zip(offs[:-1].tolist(), offs[1:].tolist())]
-            rad_list = [flat_r[a:b] for a, b in zip(offs[:-1].tolist(), offs[1:].tolist())]
             u_list, v_list = eu.tolist(), ev.tolist()
+        else:
+            flat, flat_r = np.zeros((0, coords.shape[1])), np.zeros(0)
+            offs = np.zeros(1, np.int64)
         u_list, v_list = list(u_list) + loops_u, list(v_list) + loops_u
-        pts_list, rad_list = list(pts_list) + loops_pts, list(rad_list) + loops_rad
-    return _Work(node_pos, node_r, protected, u_list, v_list, pts_list, rad_list,
-                 shape, spacing)
+        pts = EdgeArrays(flat, offs, loops_pts)
+        rad = EdgeArrays(flat_r, offs, loops_rad)
+    return _Work(node_pos, node_r, protected, u_list, v_list, pts, rad, shape, spacing)
 
 
 def _cluster_predecessors(n, jlinks, sources, coords, sp):

@@ -164,3 +164,37 @@ def test_isolated_point_and_two_components():
     s = sm.summarize(sm.skeleton_graph(mask))
     assert s["n_components"] == 2
     assert s["n_isolated_points"] == 1
+
+
+def test_edge_arrays_behave_as_a_list_of_arrays():
+    # Reference: a plain Python list of numpy arrays under the same edits.
+    from skelmorph.rawgraph import EdgeArrays
+
+    rng = np.random.default_rng(0)
+    counts = rng.integers(1, 6, 12)
+    offsets = np.concatenate([[0], np.cumsum(counts)])
+    flat = rng.normal(size=(offsets[-1], 3))
+    extra = [rng.normal(size=(4, 3))]
+    ours = EdgeArrays(flat, offsets, extra)
+    ref = [flat[a:b] for a, b in zip(offsets[:-1], offsets[1:])] + extra
+    for step in range(200):
+        op = rng.integers(4)
+        if op == 0 and len(ref):
+            e = int(rng.integers(len(ref)))
+            new = rng.normal(size=(int(rng.integers(1, 5)), 3))
+            ours[e], ref[e] = new, new
+        elif op == 1:
+            new = rng.normal(size=(int(rng.integers(1, 5)), 3))
+            ours.append(new)
+            ref.append(new)
+        elif op == 2 and len(ref):
+            keep = np.sort(rng.choice(len(ref), int(rng.integers(len(ref) + 1)), replace=False))
+            ours, ref = ours.take(keep), [ref[k] for k in keep]
+        assert len(ours) == len(ref)
+        assert all(np.array_equal(a, b) for a, b in zip(ours, ref))
+        assert np.array_equal(ours.lengths(), [len(a) for a in ref])
+        empty = np.zeros((0, 3))
+        assert np.array_equal(ours.concatenate(empty),
+                              np.concatenate(ref) if ref else empty)
+    with pytest.raises(IndexError):
+        ours[len(ref)]
