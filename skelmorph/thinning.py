@@ -369,8 +369,9 @@ def _level(d, binw2_inv, top):
 
 
 @njit(cache=True)
-def _order_by_level(dsq, binw2_inv, nz, ny, nx):
-    """Object voxels (padded flat indices) sorted by distance bin, then index.
+def _order_by_level(dsq, binw2_inv, nz, ny, nx, index_like):
+    """Object voxels (padded flat indices, of ``index_like``'s type) sorted by
+    distance bin, then index.
 
     A counting sort in two passes over the distance map (no per-voxel level
     array is kept).
@@ -394,7 +395,7 @@ def _order_by_level(dsq, binw2_inv, nz, ny, nx):
     for i in range(1, top + 2):
         counts[i] += counts[i - 1]
     starts = counts.copy()
-    order = np.empty(counts[top + 1], np.int64)
+    order = np.empty(counts[top + 1], index_like.dtype)
     py, px = ny + 2, nx + 2
     for zi in range(nz):
         for yi in range(ny):
@@ -510,9 +511,9 @@ def _thin_kernel(img, order, starts, slab_of_plane, plane, noff, dirs, adj26, ad
     """
     n_levels = starts.size - 1
     cap = max(order.size, 16)
-    active = np.empty(cap, np.int64)
-    nxt = np.empty(cap, np.int64)
-    cand = np.empty(cap, np.int64)
+    active = np.empty(cap, order.dtype)  # the queues hold indices of the order's type
+    nxt = np.empty(cap, order.dtype)
+    cand = np.empty(cap, order.dtype)
     action = np.empty(cap, np.uint8)
     n_slabs = slab_of_plane.max() + 1
     n_planes = slab_of_plane.size
@@ -654,7 +655,11 @@ def thin(mask, spacing=None, *, dsq=None, keep="curves"):
     dsq3 = dsq[None] if ndim == 2 else dsq
     nz, ny, nx = vol.shape
     binw = BIN_FRACTION * min(sp)
-    order, starts = _order_by_level(dsq3, 1.0 / (binw * binw), nz, ny, nx)
+    # Padded flat indices in 32 bits below 2^31 voxels (up to about 1290^3):
+    # the order and the queues take half the memory.
+    index = np.int32 if (nz + 2) * (ny + 2) * (nx + 2) < 2**31 else np.int64
+    order, starts = _order_by_level(dsq3, 1.0 / (binw * binw), nz, ny, nx,
+                                    np.empty(0, index))
     img = np.zeros((nz + 2, ny + 2, nx + 2), np.uint8)
     img[1:-1, 1:-1, 1:-1] = vol
     py, px = ny + 2, nx + 2
