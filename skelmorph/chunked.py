@@ -287,17 +287,19 @@ class CleanedVolume(Volume):
         return mask[start - lo:stop - lo].astype(np.uint8)
 
 
-def cleaned_volume(volume, seg, spacing, min_object_size=None, max_hole_size=None):
+def cleaned_volume(volume, seg, spacing, min_object_size=None, max_hole_size=None, grey=None):
     """The volume seen as a cleaned mask, as :func:`skelmorph.segment.segment_image`
     cleans in memory (grey input: specks and holes of at most 3^3 voxels by
     default; binary input and labels: none), and the steps for the record.
 
     Returns ``(volume, seg)``: the cleaned volume and the segmenter of its
     0/1 planes (with the steps for the record), or both unchanged when
-    there is nothing to clean.
+    there is nothing to clean.  ``grey`` says whether the scan was grey
+    (default: from ``seg``; a scan clipped to an ROI is binary by then).
     """
     from .segment import _DEFAULT_CLEAN_VOXELS, _voxel_count
-    default = 0 if seg.mode in ("binary", "label") else _DEFAULT_CLEAN_VOXELS[3]
+    grey = seg.mode not in ("binary", "label") if grey is None else grey
+    default = _DEFAULT_CLEAN_VOXELS[3] if grey else 0
     if max_hole_size is not None and np.isinf(max_hole_size):
         raise InputError("this scan is analysed in slabs, where holes can be filled only up "
                          "to a size; give --max-hole-size a number, or raise --memory-limit")
@@ -324,13 +326,17 @@ def _histogram_otsu(counts, centres):
     return float(threshold_otsu(hist=(counts, centres)))
 
 
-def survey(volume, *, threshold=None, dark=False, label=None, slab_planes=32, progress=False):
+def survey(volume, *, threshold=None, dark=False, label=None, slab_planes=32, progress=False,
+           roi=None):
     """One streamed pass that decides the per-voxel segmentation of a volume.
 
     Binary volumes need no threshold (the larger value is the structure); a
     label needs none either; a grey volume without ``threshold`` gets
-    Otsu's threshold from its histogram (256 bins between its extremes, or
-    exact integer bins for 8- and 16-bit data).
+    Otsu's threshold from its histogram, of the voxels inside ``roi`` (a
+    volume of the same shape, non-zero inside) when given: 256 bins between
+    the extremes, as scikit-image's ``threshold_otsu`` bins the float32
+    values in memory (8- and 16-bit data are counted per value in the same
+    pass, then put in those bins).
     """
     if label is not None:
         if volume.dtype.kind not in "iub":
@@ -340,7 +346,7 @@ def survey(volume, *, threshold=None, dark=False, label=None, slab_planes=32, pr
 
     nz = volume.shape[0]
     bar = Progress(-(-nz // slab_planes), "survey", enabled=bool(progress))
-    lo = hi = None
+    lo = hi = None  # extremes of the voxels the histogram counts
     values = set()
     binary = True
     small_int = volume.dtype.kind in "ub" and volume.dtype.itemsize <= 2
@@ -351,8 +357,6 @@ def survey(volume, *, threshold=None, dark=False, label=None, slab_planes=32, pr
             raise InputError(f"{volume.source}: the image holds NaN or infinite values "
                              f"(planes {a}-{min(a + slab_planes, nz)})")
         smin, smax = s.min(), s.max()
-        lo = smin if lo is None else min(lo, smin)
-        hi = smax if hi is None else max(hi, smax)
         if binary:
             if smin == smax:
                 values.add(smin.item())
@@ -361,35 +365,45 @@ def survey(volume, *, threshold=None, dark=False, label=None, slab_planes=32, pr
             else:
                 binary = False
             binary &= len(values) <= 2
+        counted = s if roi is None else s[roi.planes(a, a + len(s)) != 0]
+        if counted.size:
+            cmin, cmax = counted.min(), counted.max()
+            lo = cmin if lo is None else min(lo, cmin)
+            hi = cmax if hi is None else max(hi, cmax)
         if small_int and threshold is None:
-            counts += np.bincount(s.ravel().view(np.uint8 if s.dtype == bool else s.dtype),
+            counts += np.bincount(counted.ravel().view(np.uint8 if s.dtype == bool else s.dtype),
                                   minlength=counts.size)
         bar.update()
     if binary:
-        if lo == hi:  # one value: no structure (0) or nothing but structure
+        if len(values) == 1:  # one value: no structure (0) or nothing but structure
             from .segment import check_foreground_count
-            check_foreground_count(0 if not hi else 1, 1)
-        return Segmenter("binary", float(lo), dark,
+            check_foreground_count(0 if not max(values) else 1, 1)
+        return Segmenter("binary", float(min(values)), dark,
                          [{"step": "binary input", "structure": "low value" if dark
                            else "high value"}])
     if threshold is not None:
         return Segmenter("threshold", float(threshold), dark,
                          [{"step": "threshold", "value": float(threshold), "method": "given",
                            "structure": "below" if dark else "above"}])
+    if lo is None:
+        raise InputError("the ROI is empty (no non-zero voxels)")
     if not small_int:  # a second pass with bins between the extremes
         edges = np.linspace(float(lo), float(hi), 257)
         counts = np.zeros(256, np.int64)
         for a in range(0, nz, slab_planes):
             s = volume.planes(a, min(a + slab_planes, nz))
-            counts += np.histogram(s, bins=edges)[0]
+            counted = s if roi is None else s[roi.planes(a, a + len(s)) != 0]
+            counts += np.histogram(counted, bins=edges)[0]
         centres = 0.5 * (edges[1:] + edges[:-1])
-    else:
-        centres = np.arange(counts.size, dtype=float)
-        keep = slice(int(lo), int(hi) + 1)
-        counts, centres = counts[keep], centres[keep]
+    else:  # integer counts put in the 256 bins that the float values fall in, in memory
+        values = np.arange(int(lo), int(hi) + 1, dtype=np.float64)
+        counts, edges = np.histogram(values, bins=256, range=(float(lo), float(hi)),
+                                     weights=counts[int(lo):int(hi) + 1])
+        centres = 0.5 * (edges[1:] + edges[:-1])
     t = _histogram_otsu(counts, centres)
+    where = " inside the ROI" if roi is not None else ""
     return Segmenter("threshold", t, dark, [{"step": "threshold", "value": t,
-                                             "method": "Otsu (streamed histogram)",
+                                             "method": f"Otsu{where} (streamed histogram)",
                                              "structure": "below" if dark else "above"}])
 
 
@@ -776,6 +790,20 @@ _NOT_IN_SLABS = {"channel": "--channel", "roi": "--roi", "enhance": "--enhance",
 
 def check_slab_options(options):
     """Refuse, in one line, an option that the analysis in slabs cannot honour."""
+    roi = options.get("roi")
+    if roi is not None and not (isinstance(roi, str) and roi == "auto"):
+        if isinstance(roi, np.ndarray):
+            raise InputError("this scan is analysed in slabs; give its ROI as a file "
+                             "(TIFF, .npy, slice folder or OME-Zarr), not an array")
+        if list(options.get("measures") or []):
+            raise InputError("this scan is analysed in slabs, where the bone set does not "
+                             "take an ROI yet; leave out --roi or --measures, crop the scan, "
+                             "or raise --memory-limit")
+        options = dict(options, roi=None)  # an ROI file is read in slabs too
+    elif roi is not None:
+        raise InputError("this scan is analysed in slabs and --roi auto needs the whole image "
+                         "(its field of view); give an ROI file, crop the scan, or raise "
+                         "--memory-limit")
     for name, flag in _NOT_IN_SLABS.items():
         value = options.get(name)
         if name == "measures" and list(value or []) == ["bone"]:

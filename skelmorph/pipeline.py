@@ -158,6 +158,8 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
         reference volume (TV, lamina); the structure and its skeleton are
         clipped to it, and the work is done inside its bounding box.
         Default: the whole image (for venation, the network's filled outline).
+        A scan analysed in slabs takes an ROI file (read in slabs too), not
+        ``'auto'`` or an array, and not with the bone set yet.
     prune, prune_factor, min_branch_length, extend_tips, smoothing, merge_junctions
         Graph options, see :func:`skelmorph.skeleton_graph`.
     thinning : {"ordered", "lee", "zhang"}
@@ -269,7 +271,7 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
             prune_factor=prune_factor, min_branch_length=min_branch_length,
             merge_junctions=merge_junctions, extend_tips=extend_tips, smoothing=smoothing,
             memory_limit=memory_limit, workers=workers, scheduler=scheduler, bar=bar,
-            timings=timings, sets=sets)
+            timings=timings, sets=sets, roi=roi)
         summary["source"] = source
         for line in prep_warnings:
             warnings.warn(line, SegmentationWarning, stacklevel=2)
@@ -429,19 +431,42 @@ def _graph_in_memory(image, source, spacing, unit, sets, bar, timings, root, roo
 def _graph_in_slabs(volume, out, *, threshold, dark, label, prune, prune_factor,
                     min_branch_length, merge_junctions, extend_tips, smoothing, memory_limit,
                     workers, scheduler, bar, timings, sets=(), smooth=None,
-                    min_object_size=None, max_hole_size=None):
-    """Survey, thin in slabs and build the graph of a scan too large for memory."""
-    from .chunked import chunked_graph, cleaned_volume, smoothed_volume, survey, work_folder
+                    min_object_size=None, max_hole_size=None, roi=None):
+    """Survey, thin in slabs and build the graph of a scan too large for memory.
+
+    ``roi`` is an ROI file's path (:mod:`skelmorph.slab_roi`): the scan is
+    then read in the ROI's box and clipped to it, as in memory.
+    """
+    from .chunked import (Segmenter, chunked_graph, cleaned_volume, smoothed_volume, survey,
+                          work_folder)
     from .engine import local_workers
     workers = local_workers(workers)
     t0 = time.perf_counter()
+    whole = volume
     if smooth:  # every slab is read through the filter
         volume = smoothed_volume(volume, smooth, label=label)
-    seg = survey(volume, threshold=threshold, dark=dark, label=label, progress=bar.enabled)
+    roi_volume = box = None
+    if roi is not None:
+        from .slab_roi import CroppedVolume, roi_extent
+        from .volume import open_volume
+        roi_volume = open_volume(roi, whole.spacing, whole.unit)
+        roi_count, box = roi_extent(roi_volume, whole.shape)
+        volume, roi_volume = CroppedVolume(volume, box), CroppedVolume(roi_volume, box)
+    seg = survey(volume, threshold=threshold, dark=dark, label=label, progress=bar.enabled,
+                 roi=roi_volume)
     if smooth:
         seg.steps.insert(0, {"step": "gaussian smoothing", "sigma": volume.sigma})
+    grey = seg.mode == "threshold"
+    if roi is not None:
+        from .slab_roi import RoiClippedVolume
+        volume = RoiClippedVolume(volume, seg, roi_volume)
+        seg = Segmenter("binary", 0.0, False, list(seg.steps) + [{"step": "clip to ROI"}])
     # Specks and small holes, as in memory; every slab is read through them.
-    volume, seg = cleaned_volume(volume, seg, volume.spacing, min_object_size, max_hole_size)
+    cleaned, seg = cleaned_volume(volume, seg, volume.spacing, min_object_size, max_hole_size,
+                                  grey=grey)
+    if roi is not None and cleaned is not volume:  # a filled hole may reach past the ROI
+        cleaned = RoiClippedVolume(cleaned, Segmenter("binary", 0.0), roi_volume)
+    volume = cleaned
     timings["read"] = time.perf_counter() - t0
     bar.update(note="surveyed")
     limit = memory_limit  # bytes, decided by analyze()
@@ -450,22 +475,36 @@ def _graph_in_slabs(volume, out, *, threshold, dark, label, prune, prune_factor,
         workers=workers, scheduler=scheduler, timings=timings, progress=bar.enabled, prune=prune,
         prune_factor=prune_factor, min_branch_length=min_branch_length,
         merge_junctions=merge_junctions, extend_tips=extend_tips, smoothing=smoothing)
+    unit = volume.unit
+    voxel = float(np.prod(volume.spacing))
+    n_image = int(np.prod(whole.shape, dtype=np.int64))
+    steps = list(seg.steps)
+    if roi is None:
+        n = n_image
+        roi_info = {"source": "whole image", "volume": n * voxel, "fraction_of_image": 1.0,
+                    "box": [[0, k] for k in whole.shape]}
+    else:  # the graph of the ROI's box, moved to image coordinates (as in memory)
+        graph = _place(graph, [a for a, _ in box], volume.spacing, whole.shape)
+        n = roi_count
+        roi_info = {"source": f"file: {roi}", "volume": n * voxel,
+                    "fraction_of_image": n / n_image, "box": [list(b) for b in box]}
+        steps.insert(0, {"step": "region of interest", "source": roi_info["source"],
+                         "volume": n * voxel, "fraction_of_image": n / n_image})
     bar.update(note="graph built")
     summary = summarize(graph)
-    n = int(np.prod(volume.shape, dtype=np.int64))
-    unit = volume.unit
-    steps = list(seg.steps)
+    roi_info["volume_unit"] = f"{unit}^3"
+    for step in steps:  # every physical value with its unit, as in memory
+        if step["step"] in ("speck removal", "hole filling", "region of interest"):
+            step["unit"] = f"{unit}^3"
     steps[-1] = dict(steps[-1], foreground_fraction=info["foreground"] / n)
     steps.append({"step": "analysed in slabs", "slabs": info["n_chunks"],
                   "halo_planes": info["halo"], "memory_limit_bytes": limit,
                   "local_workers": workers if scheduler is None else 0,
                   "read_as": volume.kind})
     summary.update(
-        image_shape=list(volume.shape),
+        image_shape=list(whole.shape),
         volume_fraction=info["foreground"] / n,
-        roi={"source": "whole image", "volume": n * float(np.prod(volume.spacing)),
-             "fraction_of_image": 1.0, "box": [[0, k] for k in volume.shape],
-             "volume_unit": f"{unit}^3"},
+        roi=roi_info,
         preprocessing=steps,
         warnings=info["warnings"],
         caution=CAUTION,

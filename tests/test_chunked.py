@@ -172,7 +172,9 @@ def test_fitting_workers_add_workers_only_where_they_pay():
 
 def test_grey_scan_in_slabs_uses_a_streamed_otsu_threshold(tmp_path):
     """Otsu from the streamed histogram equals scikit-image's on the whole
-    volume (same 8-bit bins)."""
+    volume's float32 values (256 bins between the extremes), which is what
+    the analysis in memory thresholds; an 8-bit scan's integer bins would
+    put the threshold at 109 instead of 108.8 and change the mask."""
     from skimage.filters import threshold_otsu
     rng = np.random.default_rng(0)
     ph = foam(size=96.0, cell=16.0, rod_radius=2.5, seed=1)
@@ -180,9 +182,14 @@ def test_grey_scan_in_slabs_uses_a_streamed_otsu_threshold(tmp_path):
                                                                      dtype=np.uint8)
     vol = ArrayVolume(grey, (1.0, 1.0, 1.0), "um")
     seg = survey(vol, slab_planes=16)
+    expect = threshold_otsu(grey.astype(np.float32))
     assert seg.mode == "threshold"
-    assert seg.value == pytest.approx(threshold_otsu(grey))
-    np.testing.assert_array_equal(seg(grey), grey > threshold_otsu(grey))
+    assert seg.value == pytest.approx(expect, rel=1e-6)
+    np.testing.assert_array_equal(seg(grey), grey > expect)
+    for dtype, scale in ((np.uint16, 300), (np.float32, 1.5)):  # 16-bit counts, float bins
+        other = grey.astype(dtype) * dtype(scale)
+        got = survey(ArrayVolume(other, (1.0, 1.0, 1.0), "um"), slab_planes=16).value
+        assert got == pytest.approx(threshold_otsu(other.astype(np.float32)), rel=1e-6)
 
 
 @pytest.mark.parametrize("spacing", [(1.0, 1.0, 1.0), (2.0, 1.0, 0.8)])
@@ -328,6 +335,78 @@ def test_bad_large_inputs_get_one_line_errors(tmp_path):
         sm.analyze(tmp_path / "flat.zarr", memory_limit=1)
 
 
+def _cylinder_roi(shape, radius_fraction=0.42):
+    """A cylinder along the first axis, as the field of view of a micro-CT scan."""
+    y, x = np.ogrid[:shape[1], :shape[2]]
+    r = radius_fraction * min(shape[1:])
+    inside = (y - shape[1] / 2) ** 2 + (x - shape[2] / 2) ** 2 <= r ** 2
+    roi = np.broadcast_to(inside, shape).copy()
+    roi[:3] = roi[-5:] = False  # and not the end planes
+    return roi.astype(np.uint8)
+
+
+@pytest.mark.parametrize("grey", [False, True])
+def test_roi_file_in_slabs_equals_in_memory(tmp_path, grey):
+    """--roi FILE in slabs: the same box, threshold inside the ROI (Otsu from
+    the streamed histogram), clipping, clean-ups and graph as in memory."""
+    ph = foam(size=144.0, cell=16.0, rod_radius=2.5, seed=6, spacing=(1.25, 1.0, 1.0))
+    shape = ph.mask.shape
+    roi = _cylinder_roi(shape)
+    roi_path = tmp_path / "roi.npy"
+    np.save(roi_path, roi)
+    if grey:  # brighter outside the ROI, so a threshold over the whole box would differ
+        rng = np.random.default_rng(6)
+        scan = np.where(ph.mask, 150, 70) + rng.integers(0, 40, shape)
+        scan = np.where(roi > 0, scan, 200).astype(np.uint8)
+    else:
+        scan = ph.mask.astype(np.uint8)
+    path = tmp_path / "scan.npy"
+    np.save(path, scan)
+    whole = sm.analyze(path, ph.spacing, memory_limit="20GB", roi=str(roi_path), n_radii=0,
+                       tree=None)
+    slabs = sm.analyze(path, ph.spacing, memory_limit=_planes_limit(shape, 80),
+                       roi=str(roi_path), n_radii=0, tree=None)
+    assert whole.summary["n_chunks"] == 1 and slabs.summary["n_chunks"] >= 2
+    for key in ("n_nodes", "n_branches", "cycle_rank", "total_length", "volume_fraction",
+                "mean_radius"):
+        assert slabs.summary[key] == pytest.approx(whole.summary[key], rel=1e-12), key
+    np.testing.assert_array_equal(slabs.graph.nodes, whole.graph.nodes)
+    np.testing.assert_array_equal(slabs.graph.edges, whole.graph.edges)
+    assert slabs.summary["roi"] == whole.summary["roi"]
+    assert slabs.summary["image_shape"] == list(shape)
+    steps = [s["step"] for s in slabs.summary["preprocessing"]]
+    assert steps[0] == "region of interest" and "clip to ROI" in steps
+    if grey:
+        ours = [s for s in slabs.summary["preprocessing"] if s["step"] == "threshold"][0]
+        theirs = [s for s in whole.summary["preprocessing"] if s["step"] == "threshold"][0]
+        assert ours["value"] == pytest.approx(theirs["value"])
+        assert "inside the ROI" in ours["method"]
+        assert "hole filling" in steps  # the default clean-ups of a grey scan, clipped again
+    # No structure leaves the ROI: every centreline point lies inside it (or
+    # within the voxel that the polyline smoothing may move it).
+    from scipy import ndimage as ndi
+    near = ndi.binary_dilation(roi > 0, iterations=1)
+    idx = np.round(slabs.graph.points / np.asarray(ph.spacing)).astype(int)
+    assert near[tuple(idx.T)].all()
+
+
+def test_roi_in_slabs_refusals(tmp_path):
+    ph = foam(size=64.0, cell=16.0, rod_radius=2.5, seed=0)
+    path = tmp_path / "scan.npy"
+    np.save(path, ph.mask.astype(np.uint8))
+    limit = _planes_limit(ph.mask.shape, 40)
+    roi_path = tmp_path / "roi.npy"
+    np.save(roi_path, _cylinder_roi(ph.mask.shape))
+    with pytest.raises(InputError, match="bone set does not take an ROI"):
+        sm.analyze(path, 1.0, memory_limit=limit, roi=str(roi_path), measures="bone")
+    np.save(roi_path, np.zeros(ph.mask.shape, np.uint8))
+    with pytest.raises(InputError, match="ROI is empty"):
+        sm.analyze(path, 1.0, memory_limit=limit, roi=str(roi_path))
+    np.save(roi_path, np.ones((5, 5, 5), np.uint8))
+    with pytest.raises(InputError, match="ROI has shape"):
+        sm.analyze(path, 1.0, memory_limit=limit, roi=str(roi_path))
+
+
 def test_cli_refuses_what_slabs_cannot_do(tmp_path):
     ph = foam(size=64.0, cell=16.0, rod_radius=2.5, seed=0)
     path = tmp_path / "scan.tif"
@@ -336,7 +415,7 @@ def test_cli_refuses_what_slabs_cannot_do(tmp_path):
                           "--memory-limit", "1MB", "--roi", "auto", "-q"],
                          capture_output=True, text=True)
     assert run.returncode == 2
-    assert "--roi is not available in slabs" in run.stderr
+    assert "--roi auto needs the whole image" in run.stderr
     assert len(run.stderr.strip().splitlines()) == 1
     run = subprocess.run([sys.executable, "-m", "skelmorph.cli", "analyze", str(path),
                           "--memory-limit", "10kB", "-q"], capture_output=True, text=True)
