@@ -22,6 +22,8 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
+from .polyline import point_steps
+
 __all__ = ["equivalent_radius", "branch_volumes"]
 
 
@@ -88,26 +90,28 @@ def equivalent_radius(mask, spacing, raw_points, points, offsets, end_radius, vo
     if n_edges == 0 or len(raw_points) == 0:
         return out
     eid = np.repeat(np.arange(n_edges), np.diff(offsets))
-    step = np.zeros(len(points))
-    step[1:] = np.linalg.norm(np.diff(points, axis=0), axis=1)
-    step[offsets[:-1]] = 0.0
+    step = point_steps(points, offsets)
     arc = np.cumsum(step)
     arc -= arc[offsets[:-1]][eid]
     total = arc[offsets[1:] - 1][eid]
     pos = np.arange(len(points)) - offsets[:-1][eid]
     last = pos == np.diff(offsets)[eid] - 1
     inner = (pos > 0) & ~last & (arc >= end_radius[eid, 0]) & (total - arc >= end_radius[eid, 1])
-    # A point on the inner part of a branch seeds that branch; any other seeds nobody.
-    label_of_point = np.where(inner, eid, -1)
-    if volumes is None:
-        volume = branch_volumes(mask, sp, raw_points, label_of_point, n_edges)
-    else:
-        volume = volumes(raw_points, label_of_point, n_edges)
+    del arc, total, pos, last
     # Length owned by the inner points: half of each adjacent step.
     half = np.zeros(len(points))
     half[:-1] += 0.5 * step[1:]
     half += 0.5 * step
     length = np.bincount(eid[inner], half[inner], minlength=n_edges)
+    del half, step
+    # A point on the inner part of a branch seeds that branch; any other seeds
+    # nobody.  The per-point work arrays are gone before the flood runs.
+    label_of_point = np.where(inner, eid, -1).astype(np.int32 if n_edges < 2**31 else np.int64)
+    del eid, inner
+    if volumes is None:
+        volume = branch_volumes(mask, sp, raw_points, label_of_point, n_edges)
+    else:
+        volume = volumes(raw_points, label_of_point, n_edges)
     ok = length > 0
     if len(sp) == 3:
         out[ok] = np.sqrt(volume[ok] / (np.pi * length[ok]))

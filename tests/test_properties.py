@@ -120,6 +120,11 @@ def test_polyline_lengths_equal_numpy_sums(seed, d):
     np.testing.assert_allclose(got, expect, rtol=1e-12, atol=1e-9)
     s = cumulative_arclength(points, offsets)
     assert np.array_equal(got, s[offsets[1:] - 1] - s[offsets[:-1]])
+    from skelmorph.polyline import point_steps
+    step = np.zeros(len(points))
+    step[1:] = steps
+    step[offsets[:-1]] = 0.0
+    assert np.array_equal(point_steps(points, offsets), step)
 
 
 @given(st.integers(0, 2**16), st.sampled_from([(9, 11), (6, 7, 8)]), st.floats(0.1, 0.9))
