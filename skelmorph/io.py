@@ -647,30 +647,39 @@ def write_csv(path, columns):
     n = len(cols[0]) if cols else 0
     if any(len(c) != n for c in cols):
         raise ValueError("all columns must have the same length")
-    text_cols = []
-    for c in cols:
-        if c.dtype.kind == "f":
-            s = np.array(format_numbers(c), dtype=object)
-            s[~np.isfinite(c)] = ""
-            text_cols.append(s)
-        elif c.dtype.kind in "USO":
-            text = c.astype(str)
-            cells = text.astype(object)
-            risky = np.zeros(len(text), bool)
-            for start in _FORMULA_START:
-                risky |= np.char.startswith(text, start)
-            for i in np.flatnonzero(risky):  # only the few risky cells
-                cells[i] = safe_cell(cells[i])
-            text_cols.append(cells)
-        else:
-            text_cols.append(c.astype(str).astype(object))
     with atomic_write(path, "w", encoding="utf-8", newline="") as fh:
         # The csv module quotes fields that hold commas or quotes (messages, paths).
         writer = csv.writer(fh, lineterminator="\n")
         writer.writerow(names)
-        if n:
-            rows = np.stack(text_cols, axis=1) if text_cols else np.empty((n, 0), object)
+        # Blocks of rows: the text of a whole table of millions of branches
+        # as Python strings would take gigabytes.
+        for a in range(0, n, CSV_BLOCK_ROWS):
+            text_cols = [_csv_cells(c[a:a + CSV_BLOCK_ROWS]) for c in cols]
+            rows = np.stack(text_cols, axis=1) if text_cols else \
+                np.empty((min(n - a, CSV_BLOCK_ROWS), 0), object)
             writer.writerows(rows.tolist())
+
+
+#: Rows formatted at a time by :func:`write_csv`.
+CSV_BLOCK_ROWS = 1 << 16
+
+
+def _csv_cells(c):
+    """The CSV cells of one column (an object array of strings)."""
+    if c.dtype.kind == "f":
+        s = np.array(format_numbers(c), dtype=object)
+        s[~np.isfinite(c)] = ""
+        return s
+    if c.dtype.kind in "USO":
+        text = c.astype(str)
+        cells = text.astype(object)
+        risky = np.zeros(len(text), bool)
+        for start in _FORMULA_START:
+            risky |= np.char.startswith(text, start)
+        for i in np.flatnonzero(risky):  # only the few risky cells
+            cells[i] = safe_cell(cells[i])
+        return cells
+    return c.astype(str).astype(object)
 
 
 def write_tiff(path, array, spacing, unit="um"):
