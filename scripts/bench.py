@@ -492,12 +492,13 @@ def bench_memory(sizes):
               f"(analyze / thinning x{seconds / base:.1f})")
 
 
-def bench_chunks(sizes, limit):
+def bench_chunks(sizes, limit, bone_max=None):
     """The default analysis of foams (tiles of a 256^3 foam, saved as .npy)
     in slabs under a memory limit, against the same analysis in memory and
     against our thinning of the whole volume (child processes: wall time,
     CPU time, peak memory); up to 512^3 also the same foam as a noisy grey
-    scan smoothed and cleaned in slabs."""
+    scan smoothed and cleaned in slabs.  The bone set runs up to ``bone_max``
+    (all sizes when None)."""
     print(f"\nanalysis in slabs (memory limit {limit}) vs in memory vs our thinning "
           "(child processes, peak of the process and its workers):")
     tile = foam(size=256.0, cell=16.0, rod_radius=2.5, seed=0).mask
@@ -521,11 +522,12 @@ def bench_chunks(sizes, limit):
                     f"out={str(Path(tmp) / 'out')!r}); print(r.summary['n_chunks'], "
                     "r.summary['n_branches'])" + stop}
             # The bone set in slabs (the 1024^3 case takes about half an hour).
-            runs["bone"] = clock_code + (
-                f"r = sm.analyze({str(path)!r}, spacing=1, memory_limit={limit!r}, "
-                f"measures='bone', tree=None, n_radii=0, figures=False, "
-                f"out={str(Path(tmp) / 'out')!r}); print(r.summary['n_chunks'], "
-                "r.summary['n_branches'])" + stop)
+            if bone_max is None or size <= bone_max:
+                runs["bone"] = clock_code + (
+                    f"r = sm.analyze({str(path)!r}, spacing=1, memory_limit={limit!r}, "
+                    f"measures='bone', tree=None, n_radii=0, figures=False, "
+                    f"out={str(Path(tmp) / 'out')!r}); print(r.summary['n_chunks'], "
+                    "r.summary['n_branches'])" + stop)
             if size <= 512:
                 # The same foam as a noisy grey scan: smoothing, Otsu and the
                 # default clean-ups read through in every slab.
@@ -565,16 +567,21 @@ def bench_chunks(sizes, limit):
             print(f"  time grows as N^{np.polyfit(x, y, 1)[0]:.2f} ({name})")
 
 
-#: Prepended to a child's code: a thread that samples the resident memory of
-#: the child and its worker processes together (VmHWM counts one process).
+#: Prepended to a child's code: a thread that samples the memory of the
+#: child and its worker processes together (VmHWM counts one process).  Each
+#: process counts its proportional set size (Pss): workers are forked, and
+#: the pages they share with the main process would count twice in RSS.
 _TREE_SAMPLER = (
     "import os as _os, threading as _th, time as _tm\n"
     "_peak = [0]\n"
     "def _rss(pid):\n"
     "    try:\n"
-    "        return int(open(f'/proc/{pid}/statm').read().split()[1]) * _os.sysconf('SC_PAGE_SIZE')\n"
+    "        for _l in open(f'/proc/{pid}/smaps_rollup'):\n"
+    "            if _l.startswith('Pss:'):\n"
+    "                return int(_l.split()[1]) * 1024\n"
     "    except OSError:\n"
-    "        return 0\n"
+    "        pass\n"
+    "    return 0\n"
     "def _kids(pid):\n"
     "    out = []\n"
     "    for t in _os.listdir(f'/proc/{pid}/task'):\n"
@@ -841,6 +848,8 @@ def main(argv=None):
     ap.add_argument("--chunk-sizes", type=int, nargs="+", default=[256, 512],
                     help="volume sides of the 'chunks' case (multiples of 256; add 1024)")
     ap.add_argument("--memory-limit", default="2GB", help="memory limit of the 'chunks' case")
+    ap.add_argument("--chunk-bone-max", type=int, default=None,
+                    help="largest side at which the 'chunks' case runs the bone set")
     ap.add_argument("--only", nargs="+",
                     default=["thinning", "pipeline", "measures", "scans", "trees", "profiles",
                              "paths", "flow", "loops", "cohort", "compare", "report", "memory",
@@ -895,7 +904,7 @@ def main(argv=None):
     if "edt" in args.only:
         bench_edt(sizes)
     if "chunks" in args.only:
-        bench_chunks(args.chunk_sizes, args.memory_limit)
+        bench_chunks(args.chunk_sizes, args.memory_limit, args.chunk_bone_max)
     if "memory" in args.only:
         bench_memory(sizes)
     if "compare" in args.only:
