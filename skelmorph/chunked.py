@@ -537,6 +537,13 @@ class ChunkedSkeleton:
     seam_warnings: list
     files: list = field(default_factory=list)  # [(a, b, path)] slab files, by core
 
+    def take_voxels(self):
+        """``(coords, radii)``, given up by this record (so that the graph
+        build can free them once it no longer needs them)."""
+        out = (self.coords, self.radii)
+        self.coords = self.radii = None
+        return out
+
 
 class SkeletonVolume(Volume):
     """The voxels a slab-wise thinning kept (1, else 0), read back from its
@@ -847,7 +854,7 @@ def chunked_graph(volume, seg, *, memory_limit, workdir, halo=None, workers=1, s
     """
     import time
 
-    from .build import graph_from_voxels, rescale_graph
+    from .build import _graph_of_taken_voxels, rescale_graph
 
     t0 = time.perf_counter()
     scale = min(volume.spacing)
@@ -869,15 +876,14 @@ def chunked_graph(volume, seg, *, memory_limit, workdir, halo=None, workers=1, s
             found["n"] = chunked_cavities(volume, seg, cs.slabs, progress, n_run, scheduler)
         return found["n"]
 
-    graph = graph_from_voxels(
-        cs.coords, cs.radii, volume.shape, spacing, cavities=cavities,
-        volumes=chunked_branch_volumes(volume, seg, spacing, cs.slabs, cs.halo, progress,
-                                       n_run, scheduler),
-        unit=volume.unit if unit is None else unit, prune=prune, prune_factor=prune_factor,
-        min_branch_length=min_branch_length / scale, merge_junctions=merge_junctions,
-        extend_tips=extend_tips, smoothing=smoothing, timings=timings,
-        meta={"resampled_isotropic": False, "thinning_spacing": list(volume.spacing),
-              "thinning": "ordered", "n_chunks": len(cs.slabs), "halo_planes": cs.halo})
+    graph = _graph_of_taken_voxels(
+        cs.take_voxels, volume.shape, spacing, cavities,
+        chunked_branch_volumes(volume, seg, spacing, cs.slabs, cs.halo, progress, n_run,
+                               scheduler),
+        volume.unit if unit is None else unit, prune, prune_factor,
+        min_branch_length / scale, merge_junctions, extend_tips, smoothing, timings,
+        {"resampled_isotropic": False, "thinning_spacing": list(volume.spacing),
+         "thinning": "ordered", "n_chunks": len(cs.slabs), "halo_planes": cs.halo})
     graph = rescale_graph(graph, scale, volume.spacing, volume.shape)
     return graph, {"foreground": cs.foreground, "n_chunks": len(cs.slabs), "halo": cs.halo,
                    "warnings": cs.seam_warnings, "cavities": cavities}
