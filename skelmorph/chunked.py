@@ -802,10 +802,6 @@ def check_slab_options(options):
         if isinstance(roi, np.ndarray):
             raise InputError("this scan is analysed in slabs; give its ROI as a file "
                              "(TIFF, .npy, slice folder or OME-Zarr), not an array")
-        if list(options.get("measures") or []):
-            raise InputError("this scan is analysed in slabs, where the bone set does not "
-                             "take an ROI yet; leave out --roi or --measures, crop the scan, "
-                             "or raise --memory-limit")
         options = dict(options, roi=None)  # an ROI file is read in slabs too
     elif roi is not None:
         raise InputError("this scan is analysed in slabs and --roi auto needs the whole image "
@@ -945,23 +941,30 @@ class _PlaneBlock(LazyMask):
         return self.block[a - self.lo:max(a, b) - self.lo]
 
 
-def bone_slab_task(volume, seg, foreground, spacing, a, b):
+def bone_slab_task(volume, seg, foreground, spacing, a, b, roi=None):
     """The additive bone parts of planes ``a:b``: surface sums over cube
     layers a..b-1, Euler contributions of the planes (plain and
-    edge-corrected) and intercept counts of pairs starting in them."""
+    edge-corrected) and intercept counts of pairs starting in them; with an
+    ROI volume, edge-corrected in it and counted inside it, as in memory."""
     from .measure.bone import euler_in_region, mil_counts, surface_sums
     nz = volume.shape[0]
-    block = _PlaneBlock(volume, seg, foreground, max(0, a - _BONE_HALO),
-                        min(nz, b + _BONE_HALO + 1))
+    lo, hi = max(0, a - _BONE_HALO), min(nz, b + _BONE_HALO + 1)
+    block = _PlaneBlock(volume, seg, foreground, lo, hi)
+    region = None if roi is None else _PlaneBlock(roi, Segmenter("binary", 0.0), 0, lo, hi)
     whole = (b - a + 2 * _BONE_HALO + 2) * volume.shape[1] * volume.shape[2]  # one pass each
-    return a, {"surface": surface_sums(block, spacing, slab_voxels=whole, layers=(a, b)),
+    end = min(nz, b + 2)
+    return a, {"surface": surface_sums(block, spacing, roi=region, slab_voxels=whole,
+                                       layers=(a, b)),
                "euler": euler_in_region(block, slab_voxels=whole, planes=(a, b)),
-               "euler_edge": euler_in_region(block, True, slab_voxels=whole, planes=(a, b)),
-               "intercepts": mil_counts(block[a:min(nz, b + 2)], n_first=b - a)}
+               "euler_edge": euler_in_region(block, True if roi is None else region,
+                                             slab_voxels=whole, planes=(a, b)),
+               "intercepts": mil_counts(block[a:end], n_first=b - a,
+                                        roi=None if roi is None else region[a:end])}
 
 
 def chunked_bone_measures(volume, seg, spacing, foreground, cavities, memory_limit, *,
-                          workers=1, scheduler=None, progress=False, workdir=None, timings=None):
+                          workers=1, scheduler=None, progress=False, workdir=None, timings=None,
+                          roi=None, roi_count=None):
     """The bone set of a scan read in slabs.
 
     BV/TV, BS/BV, BS/TV, SMI, the Euler characteristic and Conn.D
@@ -978,6 +981,12 @@ def chunked_bone_measures(volume, seg, spacing, foreground, cavities, memory_lim
     ``timings``, a dict, gets the seconds of each part ("bone surface,
     euler, intercepts", "bone Tb.Th", "bone Tb.Sp", "bone Tb.N.direct").
 
+    ``roi`` (a volume of the same shape, non-zero inside, holding
+    ``roi_count`` voxels) is the region of interest: the volume is then the
+    ROI's tight box with the mask clipped to it, TV is the ROI's volume, and
+    every part treats the ROI's outside as :func:`skelmorph.measure.bone.bone_measures`
+    does.
+
     Returns
     -------
     dict
@@ -991,7 +1000,10 @@ def chunked_bone_measures(volume, seg, spacing, foreground, cavities, memory_lim
 
     lazy = LazyMask(volume, seg, foreground)
     voxel = float(np.prod(spacing))
-    tv, bv = lazy.size * voxel, foreground * voxel
+    if roi is not None and roi_count == lazy.size:
+        roi = None  # a box: the image-edge conventions apply, as in memory
+    tv = (lazy.size if roi is None else int(roi_count)) * voxel
+    bv = foreground * voxel
     timings = {} if timings is None else timings
     clock = [time.perf_counter()]
 
@@ -1006,7 +1018,7 @@ def chunked_bone_measures(volume, seg, spacing, foreground, cavities, memory_lim
     plane = lazy.shape[1] * lazy.shape[2]
     nz = lazy.shape[0]
     planes = max(8, int(memory_limit // BONE_SLAB_BYTES_PER_VOXEL // n_run // plane))
-    tasks = [(volume, seg, foreground, tuple(spacing), a, min(a + planes, nz))
+    tasks = [(volume, seg, foreground, tuple(spacing), a, min(a + planes, nz), roi)
              for a in range(0, nz, planes)]
     bar = Progress(len(tasks), "surface, Euler, intercepts", enabled=bool(progress))
     parts = {}
@@ -1033,11 +1045,11 @@ def chunked_bone_measures(volume, seg, spacing, foreground, cavities, memory_lim
     try:
         th, th_sd, th_step, th_halo = slab_local_thickness(
             volume, seg, spacing, "solid", memory_limit, workers=workers, scheduler=scheduler,
-            progress=progress)
+            progress=progress, roi=roi)
         lap("Tb.Th")
         sp, sp_sd, sp_step, sp_halo = slab_local_thickness(
             volume, seg, spacing, "space", memory_limit, workers=workers, scheduler=scheduler,
-            progress=progress)
+            progress=progress, roi=roi)
         lap("Tb.Sp")
     except InputError as exc:  # the limit is too small for the spheres' halo
         out["skipped"] = (f"Tb.Th, Tb.Sp and Tb.N were not computed: {exc} (a larger "
@@ -1050,7 +1062,7 @@ def chunked_bone_measures(volume, seg, spacing, foreground, cavities, memory_lim
                 "separation_halo": sp_halo * float(spacing[0])})
     try:
         out.update(_direct_tbn_in_slabs(volume, seg, spacing, memory_limit, workers, scheduler,
-                                        progress, workdir))
+                                        progress, workdir, roi))
         lap("Tb.N.direct")
     except InputError as exc:
         out["skipped"] = (f"Tb.N.direct was not computed: {exc} (a larger --memory-limit "
@@ -1059,7 +1071,7 @@ def chunked_bone_measures(volume, seg, spacing, foreground, cavities, memory_lim
 
 
 def _direct_tbn_in_slabs(volume, seg, spacing, memory_limit, workers, scheduler, progress,
-                         workdir):
+                         workdir, roi=None):
     """Tb.N.direct (Hildebrand et al. 1999, :func:`skelmorph.measure.bone.direct_trabecular_number`):
     the surface skeleton thinned in slabs, then the mean local thickness of
     the voxels off it, with it as the only walls, in slabs."""
@@ -1076,5 +1088,5 @@ def _direct_tbn_in_slabs(volume, seg, spacing, memory_limit, workers, scheduler,
         skel = SkeletonVolume(volume.shape, volume.spacing, volume.unit, sk.files)
         mean, _, _, halo = slab_local_thickness(skel, Segmenter("binary", 0.0), spacing, "space",
                                                 memory_limit, workers=workers,
-                                                scheduler=scheduler, progress=progress)
+                                                scheduler=scheduler, progress=progress, roi=roi)
     return {"Tb.N.direct": 1.0 / mean, "skeleton_gap_halo": halo * float(spacing[0])}

@@ -450,7 +450,14 @@ def _graph_in_slabs(volume, out, *, threshold, dark, label, prune, prune_factor,
         from .slab_roi import CroppedVolume, roi_extent
         from .volume import open_volume
         roi_volume = open_volume(roi, whole.spacing, whole.unit)
-        roi_count, box = roi_extent(roi_volume, whole.shape)
+        roi_count, tight = roi_extent(roi_volume, whole.shape, pad=0)
+        # The margin of the box in memory (prepare_mask): filters see past the ROI.
+        if smooth:
+            widest = max(4 * min(whole.spacing), float(smooth))
+            pad = int(np.ceil(3 * widest / min(whole.spacing))) + 1
+        else:
+            pad = 1
+        box = [(max(0, a - pad), min(n, b + pad)) for (a, b), n in zip(tight, whole.shape)]
         volume, roi_volume = CroppedVolume(volume, box), CroppedVolume(roi_volume, box)
     seg = survey(volume, threshold=threshold, dark=dark, label=label, progress=bar.enabled,
                  roi=roi_volume)
@@ -515,10 +522,18 @@ def _graph_in_slabs(volume, out, *, threshold, dark, label, prune, prune_factor,
     if "bone" in sets:
         from .chunked import chunked_bone_measures
         t0 = time.perf_counter()
-        bone = chunked_bone_measures(volume, seg, volume.spacing, info["foreground"],
+        bone_volume, bone_roi = volume, None
+        if roi is not None:  # the ROI's tight box, as in memory
+            from .slab_roi import CroppedVolume
+            inner = [(a - p, b - p) for (a, b), (p, _) in zip(tight, box)]
+            bone_volume = CroppedVolume(volume, inner)
+            bone_roi = CroppedVolume(roi_volume, inner)
+        bone = chunked_bone_measures(bone_volume, seg, volume.spacing, info["foreground"],
                                      info["cavities"](), limit, workers=workers,
                                      scheduler=scheduler, progress=bar.enabled,
-                                     workdir=work_folder(out, volume.source), timings=timings)
+                                     workdir=work_folder(out, bone_volume.source),
+                                     timings=timings, roi=bone_roi,
+                                     roi_count=None if roi is None else roi_count)
         notes = ["the plate and rod measures need components of the whole surface skeleton "
                  "and were not computed in slabs"]
         if "skipped" in bone:

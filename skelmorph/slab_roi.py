@@ -9,9 +9,11 @@ box and voxel count come from one streamed pass, and the scan and the ROI
 are read through a crop to that box, so the graph is built in the same box
 as in memory (and moved back to image coordinates the same way).
 
-An automatic ROI (``--roi auto``) needs the whole image (its field of view
-is a border-connected component with its holes filled) and is not
-available in slabs.
+The bone set measures in the ROI's tight box (no margin), as
+:func:`skelmorph.measure.bone.bone_measures` does in memory.  An automatic
+ROI (``--roi auto``) needs the whole image (its field of view is a
+border-connected component with its holes filled) and is not available in
+slabs.
 """
 
 from __future__ import annotations
@@ -58,7 +60,7 @@ class RoiClippedVolume(Volume):
 
 def roi_extent(roi, shape, slab_planes=32, pad=1):
     """Voxel count and bounding box (grown by ``pad``, within the image) of an
-    ROI volume, in one streamed pass.
+    ROI volume, in one streamed pass (``[(start, stop)]`` per axis).
 
     Raises :class:`InputError` when its shape differs from the image's, it
     holds NaN, or it is empty (as :func:`skelmorph.roi.load_roi`).

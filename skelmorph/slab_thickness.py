@@ -32,7 +32,6 @@ import math
 import numpy as np
 
 from .chunked import SLAB_ALIGN, _align_up, _slab_extent, fitting_workers, plan_slabs
-from .errors import InputError
 
 __all__ = ["slab_local_thickness", "THICKNESS_BYTES_PER_VOXEL"]
 
@@ -41,12 +40,27 @@ __all__ = ["slab_local_thickness", "THICKNESS_BYTES_PER_VOXEL"]
 THICKNESS_BYTES_PER_VOXEL = 40
 
 
-def _phase_and_distance(volume, seg, spacing, which, lo, hi):
+def _phase_and_distance(volume, seg, spacing, which, lo, hi, roi=None):
+    """The phase's planes lo..hi-1 and their distance to its walls.  With an
+    ROI (a volume, non-zero inside), the phase is the solid or the space
+    inside it and the ROI's outside is no wall, as in memory
+    (:func:`skelmorph.measure.bone.bone_measures`)."""
     from .thinning import distance_map_sq
     mask = seg(volume.planes(lo, hi))
-    phase = mask if which == "solid" else ~mask
-    del mask
-    d = distance_map_sq(phase, spacing)
+    if roi is None:
+        phase = mask if which == "solid" else ~mask
+        del mask
+        d = distance_map_sq(phase, spacing)
+    else:
+        inside = roi.planes(lo, hi) != 0
+        if which == "solid":
+            phase, no_wall = mask, mask | ~inside
+        else:
+            phase, no_wall = inside & ~mask, ~mask
+        del mask, inside
+        d = distance_map_sq(no_wall, spacing)
+        del no_wall
+        d[~phase] = 0
     np.sqrt(d, out=d)
     return phase, d
 
@@ -57,7 +71,7 @@ def _band_radius(d, a, b, lo, half):
     return float(band.max(initial=0.0))
 
 
-def radius_task(volume, seg, spacing, which, a, b, halo, memory_limit):
+def radius_task(volume, seg, spacing, which, a, b, halo, memory_limit, roi=None):
     """The halo this core needs and the largest exact radius in it:
     ``{"core": (a, b), "halo": H, "radius": R}``, or ``{"need": H}`` when a slab with that
     halo does not fit the memory limit."""
@@ -66,7 +80,7 @@ def radius_task(volume, seg, spacing, which, a, b, halo, memory_limit):
     plane_bytes = float(volume.shape[1]) * volume.shape[2] * THICKNESS_BYTES_PER_VOXEL
     while True:
         lo, hi = _slab_extent(a, b, halo, nz)
-        _, d = _phase_and_distance(volume, seg, spacing, which, lo, hi)
+        _, d = _phase_and_distance(volume, seg, spacing, which, lo, hi, roi)
         whole = lo == 0 and hi == nz
         rho = _band_radius(d, a, b, lo, halo // 2)
         if whole or rho <= (halo // 2 - 1) * sz:
@@ -80,13 +94,13 @@ def radius_task(volume, seg, spacing, which, a, b, halo, memory_limit):
         halo = need
 
 
-def thickness_task(volume, seg, spacing, which, a, b, halo, step):
+def thickness_task(volume, seg, spacing, which, a, b, halo, step, roi=None):
     """Sum, sum of squares and count of the local thickness on a core."""
     from .measure.thickness import bounded_local_thickness, masked_mean_sd
     nz = volume.shape[0]
     lo, hi = _slab_extent(a, b, halo, nz)
     lo -= lo % step  # the coarse lattice of the whole volume
-    phase, d = _phase_and_distance(volume, seg, spacing, which, lo, hi)
+    phase, d = _phase_and_distance(volume, seg, spacing, which, lo, hi, roi)
     local, _ = bounded_local_thickness(phase, d, spacing, step=step, reuse_dist=True)
     del d
     total, total_sq, count = masked_mean_sd(local[a - lo:b - lo], phase[a - lo:b - lo], sums=True)
@@ -94,7 +108,7 @@ def thickness_task(volume, seg, spacing, which, a, b, halo, step):
 
 
 def slab_local_thickness(volume, seg, spacing, which, memory_limit, *, workers=1,
-                         scheduler=None, progress=False):
+                         scheduler=None, progress=False, roi=None):
     """Mean and SD of the local thickness of the solid or of the space.
 
     Parameters
@@ -107,6 +121,9 @@ def slab_local_thickness(volume, seg, spacing, which, memory_limit, *, workers=1
         Shared by the local workers (:func:`skelmorph.chunked.fitting_workers`).
     workers, scheduler : as in :func:`skelmorph.engine.execute`
     progress : bool
+    roi : skelmorph.volume.Volume, optional
+        Region of the same shape (non-zero inside): the phase is taken inside
+        it, and its outside is no wall.
 
     Returns
     -------
@@ -127,7 +144,7 @@ def slab_local_thickness(volume, seg, spacing, which, memory_limit, *, workers=1
         slabs = plan_slabs(volume.shape, task_limit, halo,
                            bytes_per_voxel=THICKNESS_BYTES_PER_VOXEL)
         bar = Progress(len(slabs), f"{which} radii", enabled=bool(progress))
-        tasks = [(volume, seg, sp, which, a, b, halo, task_limit) for a, b in slabs]
+        tasks = [(volume, seg, sp, which, a, b, halo, task_limit, roi) for a, b in slabs]
         found, needs = {}, []
         for out in execute(radius_task, tasks, workers=n_run, scheduler=scheduler,
                            name=f"skelmorph-{which}-radius"):
@@ -141,7 +158,8 @@ def slab_local_thickness(volume, seg, spacing, which, memory_limit, *, workers=1
         halo = max(needs)
     radius = max(r["radius"] for r in found.values())
     step = max(1, int(radius / min(sp) // MAX_BALL_VOXELS))
-    tasks = [(volume, seg, sp, which, a, b, found[(a, b)]["halo"], step) for a, b in slabs]
+    tasks = [(volume, seg, sp, which, a, b, found[(a, b)]["halo"], step, roi)
+             for a, b in slabs]
     bar = Progress(len(slabs), f"{which} thickness", enabled=bool(progress))
     total = total_sq = 0.0
     count = 0

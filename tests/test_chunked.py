@@ -397,8 +397,6 @@ def test_roi_in_slabs_refusals(tmp_path):
     limit = _planes_limit(ph.mask.shape, 40)
     roi_path = tmp_path / "roi.npy"
     np.save(roi_path, _cylinder_roi(ph.mask.shape))
-    with pytest.raises(InputError, match="bone set does not take an ROI"):
-        sm.analyze(path, 1.0, memory_limit=limit, roi=str(roi_path), measures="bone")
     np.save(roi_path, np.zeros(ph.mask.shape, np.uint8))
     with pytest.raises(InputError, match="ROI is empty"):
         sm.analyze(path, 1.0, memory_limit=limit, roi=str(roi_path))
@@ -494,6 +492,32 @@ def test_bone_measures_in_slabs_equal_the_whole(tmp_path):
                        measures="bone", tree=None, n_radii=0).summary
     assert "Tb.Th" not in small and "Tb.Th" in small["skipped_measures"]["bone"]
     assert small["DA"] == pytest.approx(whole["DA"], rel=1e-9)
+
+
+def test_bone_measures_with_an_roi_in_slabs_equal_in_memory(tmp_path):
+    """--measures bone with an ROI file in slabs: TV from the ROI, surfaces,
+    edge-corrected Euler characteristic and intercepts inside it, Tb.Th,
+    Tb.Sp and Tb.N.direct with its outside as no wall, all in the ROI's
+    tight box: equal to the analysis in memory (whose ROI handling is
+    checked in test_measure.py)."""
+    ph = foam(size=96.0, cell=16.0, rod_radius=2.5, seed=6, spacing=(1.5, 1.0, 1.0))
+    mask = np.concatenate([ph.mask, ph.mask[::-1]] * 2)
+    roi = _cylinder_roi(mask.shape)
+    path, roi_path = tmp_path / "scan.npy", tmp_path / "roi.npy"
+    np.save(path, mask.astype(np.uint8))
+    np.save(roi_path, roi)
+    kw = dict(spacing=ph.spacing, roi=str(roi_path), measures="bone", tree=None, n_radii=0)
+    whole = sm.analyze(path, memory_limit="20GB", **kw).summary
+    s = sm.analyze(path, memory_limit=_planes_limit(mask.shape, 160), **kw).summary
+    assert whole["n_chunks"] == 1 and s["n_chunks"] >= 2
+    assert whole["TV"] == pytest.approx(np.count_nonzero(roi) * np.prod(ph.spacing))
+    for key in ("TV", "BV", "BV/TV", "BS/BV", "Conn.D", "euler_characteristic",
+                "euler_edge_corrected", "cavities", "DA", "n_branches"):
+        assert s[key] == pytest.approx(whole[key], rel=1e-9, abs=1e-12), key
+    assert s["SMI"] == pytest.approx(whole["SMI"], rel=1e-6)  # see the test above
+    for key in ("Tb.Th", "Tb.Th.SD", "Tb.Sp", "Tb.Sp.SD", "Tb.N", "Tb.N.direct"):
+        assert s[key] == pytest.approx(whole[key], rel=1e-6), key
+    assert s["roi"] == whole["roi"]
 
 
 @pytest.mark.parametrize("spacing", [(1.0, 1.0, 1.0), (2.0, 1.0, 1.0)])

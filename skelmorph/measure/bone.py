@@ -120,8 +120,9 @@ def euler_in_region(mask, region=None, slab_voxels=None, planes=None):
     m = _check_3d(mask)
     box = region is True
     if region is not None and not box:
-        region = np.asarray(region, bool)
-        if region.shape != m.shape:
+        if not hasattr(region, "shape"):  # a plane reader (a lazy mask) is read by slab
+            region = np.asarray(region, bool)
+        if tuple(region.shape) != tuple(m.shape):
             raise InputError(f"the region has shape {region.shape} but the mask has {m.shape}")
     nz = m.shape[0]
     plane = m.shape[1] * m.shape[2]
@@ -142,7 +143,7 @@ def euler_in_region(mask, region=None, slab_voxels=None, planes=None):
         elif box:
             r[a:b, 1:-1, 1:-1] = 1
         else:
-            r[a:b, 1:-1, 1:-1] = region[z0:z1]
+            r[a:b, 1:-1, 1:-1] = np.asarray(region[z0:z1], bool)
         total += _cell_sum(sub, r)
     return total
 
