@@ -159,7 +159,7 @@ def analyze(image, spacing=None, unit=None, *, channel=None, threshold=None, dar
         clipped to it, and the work is done inside its bounding box.
         Default: the whole image (for venation, the network's filled outline).
         A scan analysed in slabs takes an ROI file (read in slabs too), not
-        ``'auto'`` or an array, and not with the bone set yet.
+        ``'auto'`` or an array.
     prune, prune_factor, min_branch_length, extend_tips, smoothing, merge_junctions
         Graph options, see :func:`skelmorph.skeleton_graph`.
     thinning : {"ordered", "lee", "zhang"}
@@ -445,24 +445,16 @@ def _graph_in_slabs(volume, out, *, threshold, dark, label, prune, prune_factor,
     whole = volume
     if smooth:  # every slab is read through the filter
         volume = smoothed_volume(volume, smooth, label=label)
+        sigma = volume.sigma
     roi_volume = box = None
     if roi is not None:
-        from .slab_roi import CroppedVolume, roi_extent
-        from .volume import open_volume
-        roi_volume = open_volume(roi, whole.spacing, whole.unit)
-        roi_count, tight = roi_extent(roi_volume, whole.shape, pad=0)
-        # The margin of the box in memory (prepare_mask): filters see past the ROI.
-        if smooth:
-            widest = max(4 * min(whole.spacing), float(smooth))
-            pad = int(np.ceil(3 * widest / min(whole.spacing))) + 1
-        else:
-            pad = 1
-        box = [(max(0, a - pad), min(n, b + pad)) for (a, b), n in zip(tight, whole.shape)]
-        volume, roi_volume = CroppedVolume(volume, box), CroppedVolume(roi_volume, box)
+        from .slab_roi import CroppedVolume, open_roi
+        roi_volume, roi_count, tight, box = open_roi(roi, whole, smooth)
+        volume = CroppedVolume(volume, box)
     seg = survey(volume, threshold=threshold, dark=dark, label=label, progress=bar.enabled,
                  roi=roi_volume)
     if smooth:
-        seg.steps.insert(0, {"step": "gaussian smoothing", "sigma": volume.sigma})
+        seg.steps.insert(0, {"step": "gaussian smoothing", "sigma": sigma})
     grey = seg.mode == "threshold"
     if roi is not None:
         from .slab_roi import RoiClippedVolume

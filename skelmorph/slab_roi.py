@@ -23,7 +23,7 @@ import numpy as np
 from .errors import InputError
 from .volume import Volume
 
-__all__ = ["CroppedVolume", "RoiClippedVolume", "roi_extent"]
+__all__ = ["CroppedVolume", "RoiClippedVolume", "roi_extent", "open_roi"]
 
 
 class CroppedVolume(Volume):
@@ -89,3 +89,30 @@ def roi_extent(roi, shape, slab_planes=32, pad=1):
         idx = np.flatnonzero(hit)
         box.append((max(0, int(idx[0]) - pad), min(int(n), int(idx[-1]) + 1 + pad)))
     return count, box
+
+
+def open_roi(path, scan, smooth=None):
+    """The ROI file at ``path`` for ``scan`` (a volume), read in slabs.
+
+    Returns
+    -------
+    roi : CroppedVolume
+        The ROI read through the crop to ``box``.
+    count : int
+        Its voxels.
+    tight : list of (start, stop)
+        Its bounding box.
+    box : list of (start, stop)
+        The box the scan is analysed in: ``tight`` with the margin that
+        :func:`skelmorph.pipeline.prepare_mask` gives it in memory (1 voxel,
+        or the smoothing filter's reach), within the image.
+    """
+    from .volume import open_volume
+    roi = open_volume(path, scan.spacing, scan.unit)
+    count, tight = roi_extent(roi, scan.shape, pad=0)
+    pad = 1
+    if smooth:  # as in memory: the filters see past the ROI's edge
+        widest = max(4 * min(scan.spacing), float(smooth))
+        pad = int(np.ceil(3 * widest / min(scan.spacing))) + 1
+    box = [(max(0, a - pad), min(int(n), b + pad)) for (a, b), n in zip(tight, scan.shape)]
+    return CroppedVolume(roi, box), count, tight, box

@@ -345,8 +345,8 @@ def _cylinder_roi(shape, radius_fraction=0.42):
     return roi.astype(np.uint8)
 
 
-@pytest.mark.parametrize("grey", [False, True])
-def test_roi_file_in_slabs_equals_in_memory(tmp_path, grey):
+@pytest.mark.parametrize("grey,smooth", [(False, None), (True, None), (True, 1.0)])
+def test_roi_file_in_slabs_equals_in_memory(tmp_path, grey, smooth):
     """--roi FILE in slabs: the same box, threshold inside the ROI (Otsu from
     the streamed histogram), clipping, clean-ups and graph as in memory."""
     ph = foam(size=144.0, cell=16.0, rod_radius=2.5, seed=6, spacing=(1.25, 1.0, 1.0))
@@ -363,9 +363,9 @@ def test_roi_file_in_slabs_equals_in_memory(tmp_path, grey):
     path = tmp_path / "scan.npy"
     np.save(path, scan)
     whole = sm.analyze(path, ph.spacing, memory_limit="20GB", roi=str(roi_path), n_radii=0,
-                       tree=None)
+                       tree=None, smooth=smooth)
     slabs = sm.analyze(path, ph.spacing, memory_limit=_planes_limit(shape, 80),
-                       roi=str(roi_path), n_radii=0, tree=None)
+                       roi=str(roi_path), n_radii=0, tree=None, smooth=smooth)
     assert whole.summary["n_chunks"] == 1 and slabs.summary["n_chunks"] >= 2
     for key in ("n_nodes", "n_branches", "cycle_rank", "total_length", "volume_fraction",
                 "mean_radius"):
