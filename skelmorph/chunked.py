@@ -790,20 +790,18 @@ def slab_volume(path, spacing, unit, memory_limit, sets):
 
 
 #: Options that need more than one voxel at a time, with their flags.
-_NOT_IN_SLABS = {"channel": "--channel", "roi": "--roi", "enhance": "--enhance",
+_NOT_IN_SLABS = {"channel": "--channel", "enhance": "--enhance",
                  "hysteresis": "--hysteresis", "measures": "--measures",
                  "thickness_map": "--thickness-map"}
 
 
 def check_slab_options(options):
     """Refuse, in one line, an option that the analysis in slabs cannot honour."""
-    roi = options.get("roi")
-    if roi is not None and not (isinstance(roi, str) and roi == "auto"):
-        if isinstance(roi, np.ndarray):
-            raise InputError("this scan is analysed in slabs; give its ROI as a file "
-                             "(TIFF, .npy, slice folder or OME-Zarr), not an array")
-        options = dict(options, roi=None)  # an ROI file is read in slabs too
-    elif roi is not None:
+    roi = options.get("roi")  # an ROI file is read in slabs too; an array or 'auto' is not
+    if isinstance(roi, np.ndarray):
+        raise InputError("this scan is analysed in slabs; give its ROI as a file "
+                         "(TIFF, .npy, slice folder or OME-Zarr), not an array")
+    if isinstance(roi, str) and roi == "auto":
         raise InputError("this scan is analysed in slabs and --roi auto needs the whole image "
                          "(its field of view); give an ROI file, crop the scan, or raise "
                          "--memory-limit")
