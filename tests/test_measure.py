@@ -136,6 +136,28 @@ def test_ridge_thickness_in_2d_equals_brute_force(spacing):
                                   local_thickness(m, spacing, method="all"))
 
 
+@pytest.mark.parametrize("spacing", [(1.0, 1.0, 1.0), (1.5, 1.0, 1.0), (1.0, 0.7, 1.3)])
+def test_crescent_painting_equals_brute_force_around_a_skeleton(monkeypatch, spacing):
+    """The space around thin walls and lines (as direct Tb.N measures it):
+    many equal radii side by side, walls at the image edge.  Centres that
+    paint only the crescent of their ball outside a neighbour's give the
+    map painted from every voxel (Hildebrand & Rüegsegger 1997 definition),
+    and the crescent painting is what ran."""
+    from skelmorph.measure import thickness
+    rng = np.random.default_rng(5)
+    walls = np.zeros((26, 28, 30), bool)
+    walls[[0, 13, 25], :, :] = True
+    walls[:, rng.integers(0, 28, 2), :] = True
+    walls[:, 9, 4] = walls[7, :, 21] = True
+    free = ~walls
+    calls = []
+    paint = thickness._paint_crescents
+    monkeypatch.setattr(thickness, "_paint_crescents", lambda *a: calls.append(1) or paint(*a))
+    a = local_thickness(free, spacing)
+    assert calls
+    np.testing.assert_array_equal(a, local_thickness(free, spacing, method="all"))
+
+
 def test_thickness_written_into_the_distance_map():
     """reuse_dist gives the same map, in the distance map's own buffer
     (brute-force painting of every voxel as the reference)."""
