@@ -304,10 +304,11 @@ def _own_faces(verts, faces, spacing, z0, z1, lo):
 def surface_and_smi(mask, spacing, bv=None, sigma=1.0, roi=None, slab_voxels=None):
     """Bone surface (marching-cubes mesh) and the structure model index.
 
-    BS is the area of the isosurface at 0.5 of the binary image
-    (scikit-image ``marching_cubes``), open where the structure meets the
-    image edge.  SMI = 6 BV (dS/dr) / S^2 (Hildebrand & Rüegsegger 1997,
-    Comput Methods Biomech Biomed Engin 1:15), with S and dS/dr taken on the
+    BS is the area of the marching-cubes isosurface at 0.5 of the binary
+    image, open where the structure meets the image edge, summed from the
+    counts of cube configurations (:mod:`skelmorph.measure.cubes`; equal to
+    scikit-image's mesh, tested).  SMI = 6 BV (dS/dr) / S^2 (Hildebrand &
+    Rüegsegger 1997, Comput Methods Biomech Biomed Engin 1:15), with S and dS/dr taken on the
     isosurface of the image smoothed by a Gaussian of ``sigma`` voxels (the
     binary staircase biases curvature: a sphere gives 3.4 instead of 4) and
     dS/dr the central difference of the mesh area when every vertex moves by
@@ -316,12 +317,13 @@ def surface_and_smi(mask, spacing, bv=None, sigma=1.0, roi=None, slab_voxels=Non
     faces less than a voxel from the region's edge are left out (they are
     where the region cuts the structure).
 
-    The meshes are built slab by slab along axis 0 (about ``slab_voxels``
-    voxels each, halos as deep as the smoothing kernel plus two planes) and
-    each slab keeps the triangles of its own cube layers: areas add up, so
-    the result equals one mesh of the whole volume (tested) while memory
-    stays that of one slab (:func:`surface_sums` of parts of the volume add
-    up the same way).
+    The smoothed mesh is built slab by slab along axis 0 (about
+    ``slab_voxels`` voxels each, smoothed with halos as deep as the kernel
+    plus two planes, meshed on the slab's own cube layers and one plane
+    each side) and each slab keeps the triangles of its own cube layers:
+    areas add up, so the result equals one mesh of the whole volume
+    (tested) while memory stays that of one slab (:func:`surface_sums` of
+    parts of the volume add up the same way).
 
     Returns
     -------
@@ -360,6 +362,7 @@ def surface_sums(mask, spacing, sigma=1.0, roi=None, slab_voxels=None, layers=No
     from skimage.measure import marching_cubes
 
     from .._kernels import mesh_areas
+    from .cubes import binary_surface_area
     m = _check_3d(mask)
     spacing = tuple(float(s) for s in spacing)
     sp = np.asarray(spacing)
@@ -372,28 +375,24 @@ def surface_sums(mask, spacing, sigma=1.0, roi=None, slab_voxels=None, layers=No
     for z0, z1, lo, hi in _slabs(m.shape[0], plane, halo, slab_voxels, first, last):
         # The binary mesh needs no halo: planes z0..z1 hold exactly the cube
         # layers z0..z1-1, and each cube's triangles depend on its own 8
-        # voxels (so all of them are the slab's own, including triangles
-        # lying flat on its last plane).  Degenerate triangles have no area,
-        # and dropping them took most of the meshing time, so they are kept.
-        part = m[z0:z1 + 1].astype(np.float32)
-        if part.min() < part.max():
-            verts, faces, _, _ = marching_cubes(part, level=0.5, spacing=spacing,
-                                                allow_degenerate=True)
-            faces = _inside_faces(verts, faces, spacing, _rows(roi, z0, z1 + 1))
-            bs += float(mesh_areas(verts.astype(np.float64), np.zeros((len(verts), 3)), faces,
-                                   0.0)[0])
+        # voxels.  Its area comes from the cube configurations, unmeshed.
+        bs += binary_surface_area(m[z0:z1 + 1], spacing, _rows(roi, z0, z1 + 1))
         part = m[lo:hi].astype(np.float32)
         if part.min() == part.max():
             continue  # no surface crosses this slab
         if sigma:
             # Smooth with the true volume edges where the slab has them.
             part = ndi.gaussian_filter(part, sigma)
+        # Mesh only the own cube layers and one plane each side, which give
+        # their vertices' normals the central differences of the whole volume.
+        c0, c1 = max(lo, z0 - 1), min(hi, z1 + 2)
+        part = part[c0 - lo:c1 - lo]
         if part.min() >= 0.5 or part.max() <= 0.5:
             continue
         verts, faces, normals, _ = marching_cubes(part, level=0.5, spacing=spacing,
                                                   allow_degenerate=True)
-        faces = _own_faces(verts, _inside_faces(verts, faces, spacing, _rows(roi, lo, hi)), sp,
-                           z0, z1, lo)
+        faces = _own_faces(verts, _inside_faces(verts, faces, spacing, _rows(roi, c0, c1)), sp,
+                           z0, z1, c0)
         if not len(faces):
             continue
         # float64: dS/dr is a small difference of two large areas.
