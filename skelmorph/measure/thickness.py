@@ -88,7 +88,7 @@ def _lean_on_neighbours(keys, flags, flat, deltas, band_dist):
     ball leans on and where that neighbour's crescent starts.
 
     A centre c may lean on a neighbour n with r(n) > r(c), or r(n) = r(c)
-    and a smaller flat index (chosen by :func:`_ridge_flags`, whose flag is
+    and a smaller flat index (chosen by :func:`_lean_flags`, whose flag is
     2 + j): the voxels of c's ball inside n's painted ball get a value
     >= 2 r(c) from n's ball, or from the ball n's leans on, and so on down
     an order that has no cycles (a ball of equal radius is never inside
@@ -183,11 +183,8 @@ def _group_starts(keys):
 
 @numba.njit(parallel=True, cache=True, nogil=True)
 def _ridge_flags(flat, nz, ny, nx, offs, deltas, steps, table_len, need, complete, keep):
-    """keep[p] != 0 for voxels p with r(p) > 0 whose painted ball is not
-    inside a neighbour's painted ball (neighbours outside the array have none):
-    2 + j when neighbour j is the one it leans on (:func:`_lean_on_neighbours`:
-    r(n) > r(p), or r(n) = r(p) and n before p, with the largest r(n) - |delta_j|),
-    else 1.
+    """keep[p] = 1 for voxels p with r(p) > 0 whose painted ball is not
+    inside a neighbour's painted ball (neighbours outside the array have none).
 
     The ball of p paints the offsets o with |o| < r(p): the first m of
     ``table_len`` (offset lengths, ascending).  ``need[m - 1, j]`` is the
@@ -206,8 +203,6 @@ def _ridge_flags(flat, nz, ny, nx, offs, deltas, steps, table_len, need, complet
                 in_table = m < n_table or complete
                 edge = z == 0 or z == nz - 1 or y == 0 or y == ny - 1 or x == 0 or x == nx - 1
                 ok = 1
-                lean = -1
-                best = -np.inf
                 for j in range(len(deltas)):
                     if edge:
                         zz, yy, xx = z + offs[j, 0], y + offs[j, 1], x + offs[j, 2]
@@ -223,10 +218,35 @@ def _ridge_flags(flat, nz, ny, nx, offs, deltas, steps, table_len, need, complet
                     elif rn >= r + steps[j]:
                         ok = 0
                         break
-                    if (rn > r or deltas[j] < 0) and rn - steps[j] > best:
+                keep[p] = ok
+
+
+@numba.njit(parallel=True, cache=True, nogil=True)
+def _lean_flags(flat, nz, ny, nx, offs, deltas, steps, keep):
+    """keep[p] = 2 + j for the kept voxels (flag 1) with a neighbour j to
+    lean on (:func:`_lean_on_neighbours`: r(n) > r(p), or r(n) = r(p) and n
+    before p), the one with the largest r(n) - |delta_j|.  A pass of its own:
+    folded into :func:`_ridge_flags`, it slowed that loop by half."""
+    for z in numba.prange(nz):
+        for y in range(ny):
+            for x in range(nx):
+                p = (z * ny + y) * nx + x
+                if keep[p] != 1:
+                    continue
+                r = flat[p]
+                edge = z == 0 or z == nz - 1 or y == 0 or y == ny - 1 or x == 0 or x == nx - 1
+                lean = -1
+                best = -np.inf
+                for j in range(len(deltas)):
+                    if edge:
+                        zz, yy, xx = z + offs[j, 0], y + offs[j, 1], x + offs[j, 2]
+                        if not (0 <= zz < nz and 0 <= yy < ny and 0 <= xx < nx):
+                            continue
+                    rn = flat[p + deltas[j]]
+                    if (rn > r or (rn == r and deltas[j] < 0)) and rn - steps[j] > best:
                         best = rn - steps[j]
                         lean = j
-                keep[p] = 0 if ok == 0 else 2 + lean
+                keep[p] = 2 + lean
 
 
 #: Offsets in the containment table of the ridge test (26 float64 each);
@@ -247,10 +267,11 @@ def _containment_table(r_max, spacing, offs):
     return length, need, complete
 
 
-def _ridge_flags_of(dist, spacing):
+def _ridge_flags_of(dist, spacing, lean=False):
     """Flags of the ridge voxels (uint8, flat) and the flat float32 distance
     map: one compiled pass, 1 byte of flags per voxel (no padded copy: voxels on the
-    array's faces check their neighbours' bounds).
+    array's faces check their neighbours' bounds).  With ``lean``, a kept
+    voxel's flag is 2 + the neighbour it leans on (:func:`_lean_flags`).
 
     A voxel is dropped when the voxel set its ball paints lies inside the
     set a neighbour's ball of at least its radius paints: every voxel it
@@ -270,6 +291,8 @@ def _ridge_flags_of(dist, spacing):
     keep = np.zeros(d.size, np.uint8)
     flat = np.ascontiguousarray(d).reshape(-1)
     _ridge_flags(flat, *shape3, offs3, deltas, steps, table_len, need, complete, keep)
+    if lean:
+        _lean_flags(flat, *shape3, offs3, deltas, steps, keep)
     return keep, flat
 
 
@@ -405,7 +428,7 @@ def local_thickness(mask, spacing=None, method="ridge", dist=None, reuse_dist=Fa
     # thin rods, and most voxels of the space around a skeleton).
     d = np.ascontiguousarray(dist, np.float32)
     if method == "ridge":
-        keep, flat = _ridge_flags_of(d, spacing)
+        keep, flat = _ridge_flags_of(d, spacing, lean=PAINT_CRESCENTS)
     elif method == "all":
         keep, flat = mask.reshape(-1).view(np.uint8), d.reshape(-1)
     else:
