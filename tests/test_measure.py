@@ -432,6 +432,18 @@ def test_euler_by_slabs_equals_whole_and_box_formula():
 
 
 
+@pytest.mark.parametrize("fill", [0.3, 0.6])
+def test_euler_cell_sum_on_noise_equals_reference(fill):
+    """Random images hold every local configuration: the compiled cell sum
+    gives scikit-image's euler_number with connectivity 3 (reference
+    library) and, for the whole box, Odgaard & Gundersen's (1993) formula."""
+    from skimage.measure import euler_number
+    from skelmorph.measure.bone import edge_corrected_euler, euler_in_region
+    m = np.random.default_rng(4).random((23, 26, 29)) < fill
+    assert euler_in_region(m, slab_voxels=5 * 26 * 29) == euler_number(m, connectivity=3)
+    assert euler_in_region(m, True) == pytest.approx(edge_corrected_euler(m)[1], abs=1e-9)
+
+
 def test_bone_parts_of_plane_ranges_add_up_to_the_whole():
     """Euler contributions of plane ranges and surface sums of cube-layer
     ranges (the parallel parts of the bone set in slabs) add up to the
