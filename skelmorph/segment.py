@@ -111,8 +111,27 @@ def _enclosed_background(mask):
     return labels, enclosed
 
 
+#: A 3D mask of more voxels than this has its cavities counted slab by slab
+#: (labels of one slab at a time: 4 bytes per voxel of the slab, not of the
+#: volume).
+CAVITY_SLAB_VOXELS = 2 ** 24
+
+
 def count_cavities(mask):
-    """Number of enclosed background components (cavities in 3D, holes in 2D)."""
+    """Number of enclosed background components (cavities in 3D, holes in 2D).
+
+    Large 3D masks are labelled slab by slab along axis 0 and the slabs'
+    components joined across their faces
+    (:func:`skelmorph.chunked.chunked_cavities`; the same count, tested).
+    """
+    mask = np.asarray(mask)
+    if mask.ndim == 3 and mask.size > CAVITY_SLAB_VOXELS:
+        from .chunked import chunked_cavities
+        from .volume import ArrayVolume
+        planes = max(2, CAVITY_SLAB_VOXELS // max(mask.shape[1] * mask.shape[2], 1))
+        slabs = [(a, min(a + planes, mask.shape[0])) for a in range(0, mask.shape[0], planes)]
+        return chunked_cavities(ArrayVolume(mask, (1.0, 1.0, 1.0), "px"),
+                                lambda block: block.astype(bool, copy=False), slabs)
     return int(np.count_nonzero(_enclosed_background(mask)[1]))
 
 

@@ -564,3 +564,21 @@ def test_real_label_map_in_slabs_equals_in_memory(tmp_path):
     for key in ("n_nodes", "n_branches", "n_components", "cycle_rank", "total_length",
                 "mean_radius", "volume_fraction"):
         assert slabs[key] == pytest.approx(whole[key], rel=1e-12), key
+
+
+def test_cavities_of_a_large_mask_counted_in_slabs(monkeypatch):
+    """count_cavities labels a large 3D mask slab by slab: hollow balls cut
+    by slab faces (two of them by the same face) and noise give the count
+    of one labelling of the whole (scipy's ndimage.label, reference
+    library); the 5 hollow balls alone give 5 (constructed)."""
+    from skelmorph import segment
+    zz, yy, xx = np.indices((40, 30, 34))
+    hollow = np.zeros(zz.shape, bool)
+    for c in ((8, 8, 8), (10, 20, 24), (20, 8, 24), (20, 21, 9), (31, 15, 17)):
+        d2 = (zz - c[0]) ** 2 + (yy - c[1]) ** 2 + (xx - c[2]) ** 2
+        hollow |= (d2 < 36) & (d2 >= 9)
+    noisy = hollow | (np.random.default_rng(2).random(zz.shape) < 0.45)
+    whole = [segment.count_cavities(m) for m in (hollow, noisy)]
+    assert whole[0] == 5 and whole[1] > 5
+    monkeypatch.setattr(segment, "CAVITY_SLAB_VOXELS", 7 * 30 * 34)  # slabs of 7 planes
+    assert [segment.count_cavities(m) for m in (hollow, noisy)] == whole

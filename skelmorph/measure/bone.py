@@ -562,7 +562,14 @@ def bone_measures(mask, spacing, unit="um", thickness_maps=False, progress=None,
     voxel = float(np.prod(spacing))
     tv = (m.size if roi is None else int(np.count_nonzero(roi))) * voxel
     bv = float(np.count_nonzero(m)) * voxel
-    step = progress or (lambda note: None)
+    from ..heap import release_freed_memory
+
+    def step(note):  # between stages: the next one starts from a trimmed heap
+        release_freed_memory()
+        if progress:
+            progress(note)
+
+    release_freed_memory()
     # Mid-surfaces and mid-axes first, for direct Tb.N and the plates and
     # rods: its local thickness is the largest transient of the set, and
     # runs before the thickness maps exist.
@@ -589,6 +596,7 @@ def bone_measures(mask, spacing, unit="um", thickness_maps=False, progress=None,
     step("plates and rods")
     sp, sp_step = _local_thickness_in(space, space if roi is None else ~m, spacing)
     tb_sp, sp_sd = masked_mean_sd(sp, space)
+    del space
     if not thickness_maps:
         del sp
     step("separation")
